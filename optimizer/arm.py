@@ -1,0 +1,213 @@
+"""The arm: the controller's pinocchio model, the plant's (deliberately different) model, the tip.
+
+The controller computes with the URDF as written. The simulated plant is the same
+kinematic chain with the deviations the problem file states: an unmodelled payload
+at the tip and mass scales per link. Their difference is one of the things that
+makes tracking error honest (``DESIGN.md``, "What makes the simulation honest").
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+
+from .exceptions import ProblemError
+
+log = logging.getLogger(__name__)
+
+LWA = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
+
+#: Joint model short names pinocchio uses for the one-DoF joints this tool accepts.
+_ONE_DOF = ("JointModelR", "JointModelP", "JointModelRevolute", "JointModelPrismatic")
+
+
+@dataclass(frozen=True)
+class PlantDeviation:
+    """How the simulated plant differs from the controller's model."""
+
+    payload_kg: float = 0.0
+    """Point-like payload at the tip the controller does not know [kg]."""
+    payload_offset_m: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    """Payload centre of mass in the tip frame [m]."""
+    payload_radius_m: float = 0.03
+    """Radius of the solid sphere used for the payload inertia [m]."""
+    mass_scale: float = 1.0
+    """Scale on every link's mass and inertia in the plant [-]."""
+    link_mass_scale: Mapping[str, float] = field(default_factory=dict)
+    """Extra scale per link name, multiplied with ``mass_scale`` [-]."""
+
+
+def build_model(urdf_xml: str, source: object) -> pin.Model:
+    """Build a fixed-base pinocchio model from URDF text; errors name ``source``."""
+    try:
+        model = pin.buildModelFromXML(urdf_xml)
+    except Exception as err:  # pinocchio raises ValueError/RuntimeError with C++ text
+        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        raise ProblemError(source, "", f"URDF could not be read: {first}") from err
+    if model.nv == 0:
+        raise ProblemError(source, "", "URDF has no movable joint")
+    for jid in range(1, model.njoints):
+        short = model.joints[jid].shortname()
+        if not short.startswith(_ONE_DOF) or model.joints[jid].nq != 1:
+            raise ProblemError(
+                source,
+                "",
+                f"joint '{model.names[jid]}' is of type {short}; only revolute and prismatic "
+                "joints with limits are supported (continuous joints: give them limits)",
+            )
+    return model
+
+
+class Arm:
+    """Controller model, plant model and tip frame of one arm.
+
+    Args:
+        urdf_xml: the URDF document.
+        tip_frame: name of the frame whose pose the task controls.
+        home: home joint positions [rad or m], length n.
+        deviation: plant deviation from the model.
+        source: the URDF's file name, for messages.
+        armature: reflected rotor inertia per joint [kg·m²], known to model and plant alike.
+    """
+
+    def __init__(
+        self,
+        urdf_xml: str,
+        tip_frame: str,
+        home: Sequence[float] | None = None,
+        deviation: PlantDeviation | None = None,
+        source: object = None,
+        armature: Sequence[float] | None = None,
+    ) -> None:
+        self.source = source
+        self.model = build_model(urdf_xml, source)
+        if not self.model.existFrame(tip_frame):
+            names = [f.name for f in self.model.frames if f.name != "universe"]
+            raise ProblemError(
+                source, "tip_frame", f"frame '{tip_frame}' not in the URDF; frames: {', '.join(names)}"
+            )
+        if armature is not None:
+            self.model.armature = np.asarray(armature, dtype=float).copy()
+        self.tip_frame = tip_frame
+        self.tip_id = self.model.getFrameId(tip_frame)
+        self.n = self.model.nv
+        self.joint_names: tuple[str, ...] = tuple(self.model.names[1:])
+        self.effort = _ro(self.model.effortLimit)
+        self.lower = _ro(self.model.lowerPositionLimit)
+        self.upper = _ro(self.model.upperPositionLimit)
+        self.velocity_limit = _ro(self.model.velocityLimit)
+        self.link_names: tuple[str, ...] = tuple(
+            f.name for f in self.model.frames if f.type == pin.FrameType.BODY
+        )
+        q0 = np.zeros(self.n) if home is None else np.asarray(home, dtype=float)
+        self.home = _ro(q0)
+        self._link_inertials = link_inertials(urdf_xml)
+        self.deviation = deviation or PlantDeviation()
+        self.plant_model = self._build_plant(self.deviation)
+        self._data = self.model.createData()
+
+    def _build_plant(self, dev: PlantDeviation) -> pin.Model:
+        plant = self.model.copy()
+        scale = np.ones(plant.njoints)
+        scale[:] = dev.mass_scale
+        for link, s in dev.link_mass_scale.items():
+            if link not in self._link_inertials:
+                raise ProblemError(
+                    None,
+                    f"plant.link_mass_scale.{link}",
+                    f"no link with an inertial named '{link}'; links: "
+                    + ", ".join(sorted(self._link_inertials)),
+                )
+            # A link's inertia is lumped into its parent joint; add the scaled difference.
+            frame = plant.frames[plant.getFrameId(link)]
+            own = self._link_inertials[link]
+            jid = frame.parentJoint
+            plant.inertias[jid] = plant.inertias[jid] + _scaled(frame.placement.act(own), s - 1.0)
+        for jid in range(1, plant.njoints):
+            plant.inertias[jid] = _scaled(plant.inertias[jid], float(scale[jid]))
+        if dev.payload_kg > 0.0:
+            tip = plant.frames[self.tip_id]
+            sphere = pin.Inertia.FromSphere(dev.payload_kg, dev.payload_radius_m)
+            offset = pin.SE3(np.eye(3), np.asarray(dev.payload_offset_m, dtype=float))
+            plant.inertias[tip.parentJoint] = plant.inertias[tip.parentJoint] + (
+                tip.placement * offset
+            ).act(sphere)
+        return plant
+
+    def tip_pose(self, q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Tip position [m] (3,) and rotation (3, 3) in the world, controller model."""
+        pin.framesForwardKinematics(self.model, self._data, q)
+        f = self._data.oMf[self.tip_id]
+        return f.translation.copy(), f.rotation.copy()
+
+    def tip_jacobian(self, q: np.ndarray) -> np.ndarray:
+        """6×n tip Jacobian, world-aligned at the tip, rows [linear; angular]."""
+        return pin.computeFrameJacobian(self.model, self._data, q, self.tip_id, LWA)
+
+    def gravity(self, q: np.ndarray) -> np.ndarray:
+        """Gravity torque of the controller model [N·m] (n,)."""
+        return pin.computeGeneralizedGravity(self.model, self._data, q).copy()
+
+    def mass_matrix(self, q: np.ndarray) -> np.ndarray:
+        """Joint-space mass matrix of the controller model (n, n)."""
+        return pin.crba(self.model, self._data, q).copy()
+
+
+def _scaled(inertia: pin.Inertia, s: float) -> pin.Inertia:
+    """Inertia with mass, first and second moments all scaled by ``s`` (linear parameters)."""
+    return pin.Inertia.FromDynamicParameters(inertia.toDynamicParameters() * s)
+
+
+def _ro(a: np.ndarray) -> np.ndarray:
+    out = np.array(a, dtype=float, copy=True)
+    out.setflags(write=False)
+    return out
+
+
+def read_urdf(path: Path, key: str, problem_path: object) -> str:
+    """Read a URDF file's text; a missing or unreadable file is a ProblemError."""
+    try:
+        return path.read_text(encoding="utf-8")
+    except FileNotFoundError as err:
+        raise ProblemError(problem_path, key, f"URDF file not found: {path}") from err
+    except (OSError, UnicodeDecodeError) as err:
+        raise ProblemError(problem_path, key, f"URDF file {path} could not be read: {err}") from err
+
+
+def link_inertials(urdf_xml: str) -> dict[str, pin.Inertia]:
+    """Each link's own inertia in its link frame, read from the URDF ``<inertial>`` tags."""
+    import xml.etree.ElementTree as ET
+
+    root = ET.fromstring(urdf_xml)
+    out: dict[str, pin.Inertia] = {}
+    for link in root.findall("link"):
+        inertial = link.find("inertial")
+        if inertial is None:
+            continue
+        mass_el = inertial.find("mass")
+        mass = float(mass_el.get("value", "0")) if mass_el is not None else 0.0
+        origin = inertial.find("origin")
+        xyz = np.zeros(3)
+        rpy = np.zeros(3)
+        if origin is not None:
+            xyz = np.array([float(x) for x in origin.get("xyz", "0 0 0").split()])
+            rpy = np.array([float(x) for x in origin.get("rpy", "0 0 0").split()])
+        tens = inertial.find("inertia")
+        I = np.zeros((3, 3))
+        if tens is not None:
+            g = {k: float(tens.get(k, "0")) for k in ("ixx", "iyy", "izz", "ixy", "ixz", "iyz")}
+            I = np.array(
+                [
+                    [g["ixx"], g["ixy"], g["ixz"]],
+                    [g["ixy"], g["iyy"], g["iyz"]],
+                    [g["ixz"], g["iyz"], g["izz"]],
+                ]
+            )
+        R = pin.rpy.rpyToMatrix(*rpy)
+        out[link.get("name", "")] = pin.SE3(R, xyz).act(pin.Inertia(mass, np.zeros(3), I))
+    return out

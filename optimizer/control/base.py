@@ -1,0 +1,61 @@
+"""What the simulator needs from a controller, and the settings shared by controllers."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Protocol
+
+import numpy as np
+
+from ..trajectories import Reference
+
+#: Task axes by the names used in problem files, in J's row order.
+AXES = ("x", "y", "z", "rx", "ry", "rz")
+
+
+@dataclass(frozen=True)
+class ControlSettings:
+    """Controller settings from the problem's ``[control]`` table."""
+
+    rate_hz: float
+    """Control rate [Hz]."""
+    task_axes: tuple[int, ...] = (0, 1, 2, 3, 4, 5)
+    """Rows of the 6×n tip Jacobian the task controls (0–2 position, 3–5 orientation)."""
+    null_stiffness: tuple[float, ...] = ()
+    """Null-space posture stiffness per joint [N·m/rad]; empty for none."""
+    null_damping: tuple[float, ...] = ()
+    """Null-space damping per joint [N·m·s/rad]; empty for none."""
+    tier_damping: float = 1e-4
+    """Default λ of each tier's solve [(m/s²)/(N) scale, i.e. of J M⁻¹ Jᵀ]."""
+    null_eps: float = 1e-8
+    """Regularisation of Λ⁻¹ = J M⁻¹ Jᵀ in the null-space projector [-]."""
+
+    @property
+    def dt(self) -> float:
+        """Control period [s]."""
+        return 1.0 / self.rate_hz
+
+
+class Controller(Protocol):
+    """A controller the closed loop can run."""
+
+    kind: str
+    """``plan``, ``osc`` or ``joint_space``."""
+    n_tiers: int
+    """Tier count (1 for baselines)."""
+
+    def bind(self, ref: Reference) -> None:
+        """Prepare for a rollout on ``ref`` (may precompute, e.g. inverse kinematics)."""
+        ...
+
+    def command(
+        self, k: int, q: np.ndarray, vm: np.ndarray, tau: np.ndarray, tier_tau: np.ndarray,
+        e6: np.ndarray,
+    ) -> int:
+        """Write the clipped torque command for tick ``k`` into ``tau``.
+
+        ``q``/``vm`` are the measured joint positions [rad] and velocities [rad/s];
+        ``tier_tau`` (n_tiers, n) receives each tier's share, ``e6`` the tip pose error
+        [m; rad] (world axes). Returns 0, or a non-zero status for a singular solve.
+        """
+        ...

@@ -1,0 +1,38 @@
+"""Errors of the tool: one base class, each error keeps what was wrong as attributes."""
+
+from __future__ import annotations
+
+
+class TierplanError(Exception):
+    """Base class of every error this package raises on purpose."""
+
+
+class InputError(TierplanError):
+    """A user file is wrong: says which file, which key, and what is wrong.
+
+    Attributes:
+        path: the file that holds the bad value (or ``None`` when built in code).
+        key: dotted key inside the file (``actuators.elbow.corner_hz``), or ``""``.
+        reason: what is wrong and, where possible, how to fix it.
+    """
+
+    def __init__(self, path: object, key: str, reason: str) -> None:
+        self.path = None if path is None else str(path)
+        self.key = key
+        self.reason = reason
+        where = self.path or "<in memory>"
+        if key:
+            where = f"{where}: {key}"
+        super().__init__(f"{where}: {reason}")
+
+
+class ProblemError(InputError):
+    """A problem file (or a file it names: URDF, CSV) is wrong."""
+
+
+class PlanError(InputError):
+    """A plan file is wrong."""
+
+
+class SimulationError(TierplanError):
+    """The simulator was asked for something it cannot do (not a divergence: those are results)."""
