@@ -14,6 +14,7 @@ from collections.abc import Callable, Iterable
 import numpy as np
 
 from .simulate import ClosedLoop, LoopState
+from .trajectories import Reference
 
 
 def jacobian_fd(
@@ -53,6 +54,7 @@ def loop_margin(loop: ClosedLoop, samples: Iterable[tuple[int, LoopState]]) -> f
     return 1.0 - max(radii) if radii else float("nan")
 
 
-def home_margin(loop: ClosedLoop) -> float:
-    """Margin at the home pose at t = 0: a cheap pre-check before any rollout."""
+def home_margin(loop: ClosedLoop, ref: Reference) -> float:
+    """Margin at the home pose at t = 0 of ``ref``: a cheap pre-check before any rollout."""
+    loop.controller.bind(ref)
     return 1.0 - loop_radius(loop, 0, loop.initial_state())

@@ -93,9 +93,10 @@ class TableReader:
         max_value: float | None = None,
         strict_min: bool = False,
     ) -> Any:
+        if key not in self.data and default is not _MISSING:
+            self.seen.add(key)
+            return default
         v = self.raw(key, default)
-        if v is None and default is None:
-            return None
         return self._check_number(key, v, min_value, max_value, strict_min)
 
     def _check_number(
@@ -114,6 +115,9 @@ class TableReader:
 
     def int(self, key: str, default: Any = _MISSING, min_value: int | None = None,
             max_value: int | None = None) -> Any:
+        if key not in self.data and default is not _MISSING:
+            self.seen.add(key)
+            return default
         v = self.raw(key, default)
         if isinstance(v, bool) or not isinstance(v, int):
             raise self.fail(key, f"must be a whole number, got {v!r}")

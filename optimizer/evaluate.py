@@ -1,0 +1,241 @@
+"""Score a controller on a problem: one rollout per trajectory, metrics, stability margin.
+
+Pure library code: no printing, no optuna. ``on_trajectory`` lets a caller (the search)
+see the running error after each trajectory and stop early by raising.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .control import Controller, JointSpaceController, TieredController
+from .metrics import TrackMetrics, track_metrics
+from .plan import Plan, single_tier
+from .problem import Problem
+from .simulate import ClosedLoop, Rollout
+from .stability import loop_margin
+
+
+@dataclass(frozen=True)
+class TrajectoryScore:
+    """Figures of one plan on one trajectory."""
+
+    name: str
+    """Trajectory name."""
+    metrics: TrackMetrics
+    """Tracking and effort figures."""
+    margin: float
+    """1 − largest spectral radius at the sampled instants [-] (nan when diverged)."""
+    diverged: bool
+    """True when the rollout stopped early."""
+    reason: str | None
+    """Why it stopped, or None."""
+    steps: int
+    """Ticks simulated."""
+    error_index: float
+    """Weighted normalised RMS error of this trajectory [-]."""
+
+
+@dataclass(frozen=True)
+class Score:
+    """Figures of one plan (or baseline) over the whole trajectory set."""
+
+    label: str
+    """Name shown in tables."""
+    kind: str
+    """``plan``, ``osc`` or ``joint_space``."""
+    tiers: int
+    """Tier count."""
+    plan_text: str
+    """Plan in one line (or the baseline's gains)."""
+    feasible: bool
+    """Stable with margin and no divergence on any trajectory."""
+    reason: str | None
+    """Why not feasible, or None."""
+    pos_rms_mm: float
+    """Mean over trajectories of the RMS position error [mm]."""
+    rot_rms_deg: float
+    """Mean over trajectories of the RMS orientation error [deg]."""
+    pos_max_mm: float
+    """Largest position error over the set [mm]."""
+    rot_max_deg: float
+    """Largest orientation error over the set [deg]."""
+    tau_rms_nm: float
+    """Mean over trajectories of the RMS commanded torque [N·m]."""
+    peak_torque_ratio: float
+    """Largest |command| / limit over the set [-]."""
+    path_at_mm: float | None
+    """Largest path accuracy AT_p over the set [mm] (None when no trajectory moves)."""
+    margin: float
+    """Smallest margin over the set [-]."""
+    error_index: float
+    """Aggregate error the search minimises (inf when infeasible by divergence) [-]."""
+    steps: int
+    """Ticks simulated over the set."""
+    trajectories: tuple[TrajectoryScore, ...]
+    """Per-trajectory figures."""
+
+    def to_dict(self) -> dict[str, object]:
+        """JSON-ready dict; non-finite numbers become None."""
+        d = {k: v for k, v in asdict(self).items() if k != "trajectories"}
+        d["trajectories"] = [
+            {"name": t.name, **asdict(t.metrics), "margin": t.margin, "diverged": t.diverged,
+             "reason": t.reason, "steps": t.steps, "error_index": t.error_index}
+            for t in self.trajectories
+        ]
+        return _finite(d)  # type: ignore[no-any-return]
+
+
+def _finite(x: object) -> object:
+    if isinstance(x, float):
+        return x if math.isfinite(x) else None
+    if isinstance(x, dict):
+        return {k: _finite(v) for k, v in x.items()}
+    if isinstance(x, list):
+        return [_finite(v) for v in x]
+    return x
+
+
+def plan_controller(problem: Problem, plan: Plan, kind: str = "plan") -> TieredController:
+    """The tiered controller of ``plan`` on ``problem``."""
+    return TieredController(problem.arm, plan, problem.control, kind=kind)
+
+
+def osc_plan(problem: Problem, kp_t: float, kp_r: float, zeta: float,
+             label: str = "single-tier OSC") -> Plan:
+    """Single-tier OSC over every joint."""
+    return single_tier(problem.arm.n, kp_t, kp_r, zeta, problem.arm.joint_names, label=label)
+
+
+def joint_controller(problem: Problem, kp: object, zeta: float,
+                     label: str = "joint-space CLIK + PD") -> JointSpaceController:
+    """The joint-space baseline with the problem's CLIK settings."""
+    b = problem.baseline
+    return JointSpaceController(problem.arm, problem.control, np.asarray(kp, dtype=float), zeta,
+                                b.clik_gain, b.clik_damping, b.posture_gain, label=label)
+
+
+def make_loop(problem: Problem, controller: Controller) -> ClosedLoop:
+    """The closed loop of ``controller`` on the problem's plant."""
+    return ClosedLoop(problem.arm, problem.actuators, controller, problem.dt, problem.sim)
+
+
+def trajectory_error(problem: Problem, m: TrackMetrics) -> float:
+    """Weighted normalised RMS error of one trajectory [-]."""
+    s = problem.scoring
+    return s.pos_weight * m.pos_rms_mm / s.pos_scale_mm + s.rot_weight * m.rot_rms_deg / s.rot_scale_deg
+
+
+def evaluate(
+    problem: Problem,
+    controller: Controller,
+    label: str,
+    plan_text: str = "",
+    stop_on_failure: bool = False,
+    compute_margin: bool = True,
+    on_trajectory: Callable[[int, float], None] | None = None,
+    keep_rollouts: list[Rollout] | None = None,
+    seed: int | None = None,
+) -> Score:
+    """Simulate ``controller`` on every trajectory of ``problem`` and score it.
+
+    Args:
+        stop_on_failure: skip the remaining trajectories once one diverges or is unstable.
+        compute_margin: linearise the loop at the sampled instants (costs ~2·states ticks each).
+        on_trajectory: called with (index, running aggregate error) after each trajectory.
+        keep_rollouts: when given, every rollout is appended to it (for figures).
+        seed: noise seed (default: the problem's).
+    """
+    loop = make_loop(problem, controller)
+    per: list[TrajectoryScore] = []
+    s = problem.scoring
+    for i, ref in enumerate(problem.references):
+        ro = loop.rollout(ref, seed=seed)
+        if keep_rollouts is not None:
+            keep_rollouts.append(ro)
+        m = track_metrics(ro, loop.effort, s.settle_s, problem.dt)
+        margin = loop_margin(loop, ro.snapshots) if (compute_margin and not ro.diverged) else math.nan
+        err = math.inf if ro.diverged else trajectory_error(problem, m)
+        per.append(TrajectoryScore(ref.name, m, margin, ro.diverged, ro.reason, ro.steps, err))
+        if on_trajectory is not None:
+            on_trajectory(i, _aggregate([t.error_index for t in per], s.aggregate))
+        unstable = compute_margin and not ro.diverged and margin < s.min_margin
+        if stop_on_failure and (ro.diverged or unstable):
+            break
+    return _score(problem, controller, label, plan_text, per)
+
+
+def _aggregate(values: list[float], how: str) -> float:
+    if not values:
+        return math.inf
+    return float(max(values)) if how == "worst" else float(np.mean(values))
+
+
+def _score(problem: Problem, controller: Controller, label: str, plan_text: str,
+           per: list[TrajectoryScore]) -> Score:
+    s = problem.scoring
+    reason = next((f"{t.name}: {t.reason}" for t in per if t.diverged), None)
+    margins = [t.margin for t in per if not math.isnan(t.margin)]
+    margin = min(margins) if margins else math.nan
+    if reason is None and margins and margin < s.min_margin:
+        worst = min(per, key=lambda t: t.margin if not math.isnan(t.margin) else math.inf)
+        reason = f"{worst.name}: stability margin {margin:.4f} below {s.min_margin:g}"
+    if reason is None and len(per) < len(problem.references):
+        reason = "not all trajectories were run"
+    ats = [t.metrics.path_at_mm for t in per if t.metrics.path_at_mm is not None]
+    return Score(
+        label=label,
+        kind=controller.kind,
+        tiers=controller.n_tiers,
+        plan_text=plan_text,
+        feasible=reason is None,
+        reason=reason,
+        pos_rms_mm=float(np.mean([t.metrics.pos_rms_mm for t in per])),
+        rot_rms_deg=float(np.mean([t.metrics.rot_rms_deg for t in per])),
+        pos_max_mm=float(max(t.metrics.pos_max_mm for t in per)),
+        rot_max_deg=float(max(t.metrics.rot_max_deg for t in per)),
+        tau_rms_nm=float(np.mean([t.metrics.tau_rms_nm for t in per])),
+        peak_torque_ratio=float(max(t.metrics.peak_torque_ratio for t in per)),
+        path_at_mm=float(max(ats)) if ats else None,
+        margin=margin,
+        error_index=_aggregate([t.error_index for t in per], s.aggregate),
+        steps=sum(t.steps for t in per),
+        trajectories=tuple(per),
+    )
+
+
+def score_plan(problem: Problem, plan: Plan, **kw: object) -> Score:
+    """Evaluate a tier plan (kind ``osc`` when it is one all-joint tier)."""
+    n = problem.arm.n
+    kind = "osc" if len(plan.tiers) == 1 and plan.tiers[0].joints == tuple(range(n)) else "plan"
+    ctrl = plan_controller(problem, plan, kind="plan" if kind == "plan" else "osc")
+    if kw.pop("as_plan", False):
+        ctrl.kind = "plan"
+    return evaluate(problem, ctrl, plan.label, plan.compact(n), **kw)  # type: ignore[arg-type]
+
+
+def score_osc_baseline(problem: Problem, **kw: object) -> Score:
+    """Single-tier OSC at the problem's baseline gains."""
+    b = problem.baseline
+    plan = osc_plan(problem, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
+    ctrl = plan_controller(problem, plan, kind="osc")
+    return evaluate(problem, ctrl, plan.label, plan.compact(problem.arm.n), **kw)  # type: ignore[arg-type]
+
+
+def joint_gains_text(kp: tuple[float, ...] | np.ndarray, zeta: float) -> str:
+    """Joint-space gains in one line."""
+    vals = np.atleast_1d(np.asarray(kp, dtype=float))
+    body = f"kp {vals[0]:.4g}" if np.all(vals == vals[0]) else "kp " + "/".join(f"{v:.3g}" for v in vals)
+    return f"joint PD {body} z{zeta:.3g}"
+
+
+def score_joint_baseline(problem: Problem, **kw: object) -> Score:
+    """Joint-space CLIK + PD at the problem's baseline gains."""
+    b = problem.baseline
+    ctrl = joint_controller(problem, b.joint_kp, b.joint_zeta, label="baseline: joint-space CLIK + PD")
+    return evaluate(problem, ctrl, ctrl.label, joint_gains_text(b.joint_kp, b.joint_zeta),
+                    **kw)  # type: ignore[arg-type]

@@ -1,0 +1,478 @@
+"""Problem files (TOML): the arm, its actuators, the plant deviation, trajectories, settings.
+
+See ``problems/polish7/problem.toml`` for a commented example of every table.
+Loading validates everything and raises ``ProblemError(file, key, reason)``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import logging
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .actuators import ACTUATOR_MODELS, JointActuator, make_model
+from .arm import Arm, PlantDeviation, read_urdf
+from .control import AXES, ControlSettings, clik
+from .exceptions import ProblemError
+from .simulate import SimSettings
+from .tomlio import TableReader, load_toml, suggestion
+from .trajectories import (
+    ROTATION_KINDS,
+    TRAJECTORY_KINDS,
+    TRANSLATION_KINDS,
+    Combined,
+    CsvPoses,
+    Reference,
+    sample,
+)
+
+log = logging.getLogger(__name__)
+
+#: Largest IK error along a trajectory before it counts as out of reach [m], [rad].
+REACH_POS_M = 1e-3
+REACH_ROT_RAD = math.radians(0.5)
+
+
+@dataclass(frozen=True)
+class Scoring:
+    """How per-trajectory figures become one error index."""
+
+    pos_scale_mm: float = 1.0
+    """Position RMS that counts as one unit of error [mm]."""
+    rot_scale_deg: float = 0.1
+    """Orientation RMS that counts as one unit of error [deg]."""
+    pos_weight: float = 1.0
+    """Weight of the position part [-]."""
+    rot_weight: float = 1.0
+    """Weight of the orientation part [-]."""
+    aggregate: str = "mean"
+    """``mean`` over trajectories, or ``worst``."""
+    settle_s: float = 0.1
+    """Start of the scored window in every trajectory [s]."""
+    min_margin: float = 0.0
+    """Smallest stability margin 1 − ρ a feasible plan may have [-]."""
+
+
+@dataclass(frozen=True)
+class BaselineGains:
+    """Gains of the two baselines when scored without a search."""
+
+    osc_kp_t: float = 400.0
+    """Single-tier OSC translational stiffness [1/s²]."""
+    osc_kp_r: float = 400.0
+    """Single-tier OSC rotational stiffness [1/s²]."""
+    osc_zeta: float = 0.8
+    """Single-tier OSC damping ratio [-]."""
+    joint_kp: tuple[float, ...] = (400.0,)
+    """Joint-space PD stiffness, one value or one per joint [1/s²]."""
+    joint_zeta: float = 0.8
+    """Joint-space PD damping ratio [-]."""
+    clik_gain: float = 200.0
+    """CLIK error gain [1/s]."""
+    clik_damping: float = 0.01
+    """CLIK damped least-squares λ [-]."""
+    posture_gain: float = 2.0
+    """CLIK null-space pull toward the home pose [1/s]."""
+
+
+@dataclass(frozen=True)
+class TrajectorySpec:
+    """One trajectory of the set as written in the problem file."""
+
+    name: str
+    """Unique name."""
+    kind: Any
+    """A trajectory kind object (see ``trajectories``)."""
+    duration_s: float
+    """Length of the rollout [s]."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """A loaded, validated problem."""
+
+    path: Path | None
+    """The problem file (None when built in code)."""
+    name: str
+    """Problem name (results go to results/<name>/)."""
+    description: str
+    """One paragraph on the scenario."""
+    arm: Arm
+    """Controller and plant models."""
+    actuators: tuple[JointActuator, ...]
+    """One drive per joint, in joint order."""
+    control: ControlSettings
+    """Controller settings."""
+    sim: SimSettings
+    """Simulation settings."""
+    scoring: Scoring
+    """Scoring settings."""
+    baseline: BaselineGains
+    """Baseline gains for ``score --baselines``."""
+    trajectories: tuple[TrajectorySpec, ...]
+    """The test set."""
+    references: tuple[Reference, ...] = field(repr=False)
+    """The test set sampled at the control rate."""
+    digest: str = ""
+    """SHA-256 of the problem file and the URDF (reproducibility)."""
+    warnings: tuple[str, ...] = ()
+    """Things the user should know (rounded delays, ...)."""
+
+    @property
+    def dt(self) -> float:
+        """Control period [s]."""
+        return self.control.dt
+
+
+def load_problem(path: Path | str, check_reach: bool = True) -> Problem:
+    """Read, validate and build a problem file."""
+    path = Path(path)
+    data = load_toml(path, ProblemError)
+    return parse_problem(data, path, check_reach=check_reach)
+
+
+def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) -> Problem:
+    """Build a problem from parsed TOML ``data`` that came from ``path``."""
+    root = TableReader(data, path, "", ProblemError)
+    base = path.parent
+    warnings: list[str] = []
+    name = root.str("name", path.parent.name if path.name == "problem.toml" else path.stem)
+    description = root.str("description", "")
+
+    # -- arm -----------------------------------------------------------------
+    ta = root.table("arm", required=True)
+    urdf_rel = ta.str("urdf")
+    urdf_path = (base / urdf_rel).resolve()
+    urdf_xml = read_urdf(urdf_path, "arm.urdf", path)
+    tip = ta.str("tip_frame")
+    home_raw = ta.floats("home", None)
+    ta.done()
+
+    tp = root.table("plant")
+    dev_args: dict[str, Any] = {}
+    dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0)
+    dev_args["payload_offset_m"] = tp.floats("payload_offset_m", (0.0, 0.0, 0.0), length=3)
+    dev_args["payload_radius_m"] = tp.float("payload_radius_m", 0.03, min_value=0.0, strict_min=True)
+    dev_args["mass_scale"] = tp.float("mass_scale", 1.0, min_value=0.0, strict_min=True)
+    tl = tp.table("link_mass_scale")
+    lms = {k: tl.float(k, min_value=0.0, strict_min=True) for k in list(tl.data)}
+    tl.done()
+    dev_args["link_mass_scale"] = lms
+    tp.done()
+
+    # -- actuators (read before the arm to know armatures) ---------------------
+    tacts = root.table("actuators", required=True)
+    # joint names come from the URDF; build a throwaway arm for names only
+    names = _joint_names(urdf_xml, urdf_path, tip)
+    default = tacts.table("default") if tacts.has("default") else None
+    act_specs = []
+    armature = np.zeros(len(names))
+    control_tab = root.table("control", required=True)
+    rate = control_tab.float("rate_hz", min_value=0.0, strict_min=True)
+    for key in list(tacts.data):
+        if key != "default" and key not in names:
+            raise ProblemError(
+                path, f"actuators.{key}",
+                f"no joint named '{key}' in the URDF{suggestion(key, names)}; joints: {', '.join(names)}",
+            )
+    for j, jname in enumerate(names):
+        if not tacts.has(jname) and default is None:
+            raise ProblemError(path, f"actuators.{jname}",
+                               f"joint '{jname}' has no actuator: add an [actuators.{jname}] table "
+                               "(or an [actuators.default] table)")
+        own = tacts.data.get(jname, {})
+        merged = dict(default.data) if default is not None else {}
+        if not isinstance(own, dict):
+            raise ProblemError(path, f"actuators.{jname}", "must be a table")
+        merged.update(own)
+        tj = TableReader(merged, path, f"actuators.{jname}.", ProblemError)
+        tacts.seen.add(jname)
+        act, arm_j, warn = _read_actuator(tj, jname, rate, path)
+        armature[j] = arm_j
+        act_specs.append(act)
+        if warn:
+            warnings.append(warn)
+        tj.done()
+    if default is not None:
+        tacts.seen.add("default")
+    tacts.done()
+
+    n = len(names)
+    if home_raw is None:
+        home = np.zeros(n)
+    else:
+        if len(home_raw) != n:
+            raise ProblemError(path, "arm.home", f"needs {n} values (one per joint), got {len(home_raw)}")
+        home = np.array(home_raw, dtype=float)
+    try:
+        arm = Arm(urdf_xml, tip, home=None, deviation=PlantDeviation(**dev_args), source=urdf_path,
+                  armature=armature)
+    except ProblemError as err:
+        if err.key.startswith("plant."):
+            raise ProblemError(path, err.key, err.reason) from err
+        if err.key == "tip_frame":
+            raise ProblemError(path, "arm.tip_frame", err.reason) from err
+        raise
+    # home: degrees for revolute joints, metres for prismatic ones
+    home_q = np.array([
+        math.radians(h) if arm.model.joints[j + 1].shortname().startswith("JointModelR") else h
+        for j, h in enumerate(home)
+    ])
+    for j in range(n):
+        if not (arm.lower[j] <= home_q[j] <= arm.upper[j]):
+            raise ProblemError(path, "arm.home", f"{names[j]} = {home[j]:g} is outside its URDF limits "
+                               f"[{_show(arm, j, arm.lower[j])}, {_show(arm, j, arm.upper[j])}]")
+    arm = Arm(urdf_xml, tip, home=home_q, deviation=PlantDeviation(**dev_args), source=urdf_path,
+              armature=armature)
+    effort = np.array(arm.effort)
+    acts = []
+    for j, a in enumerate(act_specs):
+        eff = a.effort_nm if math.isfinite(a.effort_nm) else float(effort[j])
+        if not eff > 0.0:
+            raise ProblemError(path, f"actuators.{names[j]}.effort_nm",
+                               "URDF effort limit is 0: give effort_nm here")
+        acts.append(dataclasses.replace(a, effort_nm=eff))
+    arm = _with_effort(arm, np.array([a.effort_nm for a in acts]))
+
+    # -- control ---------------------------------------------------------------
+    axes_names = control_tab.strings("task_axes", AXES)
+    for a in axes_names:
+        if a not in AXES:
+            raise ProblemError(path, "control.task_axes", f"'{a}' is not an axis; use {', '.join(AXES)}")
+    if len(set(axes_names)) != len(axes_names) or not axes_names:
+        raise ProblemError(path, "control.task_axes", "must list each axis at most once, at least one")
+    axes = tuple(sorted(AXES.index(a) for a in axes_names))
+    ns = _per_joint(control_tab, "null_stiffness_nm_per_rad", n, 0.0)
+    nd = _per_joint(control_tab, "null_damping_nms_per_rad", n, 0.0)
+    lam = control_tab.float("tier_damping", 1e-4, min_value=0.0)
+    control_tab.done()
+    control = ControlSettings(rate_hz=rate, task_axes=axes, null_stiffness=ns, null_damping=nd,
+                              tier_damping=lam)
+
+    tsim = root.table("simulation")
+    tsense = root.table("sensing")
+    sim = SimSettings(
+        substeps=tsim.int("substeps", 1, min_value=1, max_value=100),
+        velocity_noise=tsense.float("velocity_noise_rad_s", 0.0, min_value=0.0),
+        seed=tsense.int("seed", 0, min_value=0),
+        max_error_m=tsim.float("max_error_m", 0.2, min_value=0.0, strict_min=True),
+        pinned_s=tsim.float("pinned_s", 0.2, min_value=0.0, strict_min=True),
+        margin_samples=tsim.int("margin_samples", 3, min_value=1, max_value=50),
+    )
+    tsense.done()
+    tsc = root.table("scoring")
+    scoring = Scoring(
+        pos_scale_mm=tsc.float("pos_scale_mm", 1.0, min_value=0.0, strict_min=True),
+        rot_scale_deg=tsc.float("rot_scale_deg", 0.1, min_value=0.0, strict_min=True),
+        pos_weight=tsc.float("pos_weight", 1.0, min_value=0.0),
+        rot_weight=tsc.float("rot_weight", 1.0, min_value=0.0),
+        aggregate=tsc.str("aggregate", "mean", choices=("mean", "worst")),
+        settle_s=tsim.float("settle_s", 0.1, min_value=0.0),
+        min_margin=tsim.float("min_margin", 0.0, min_value=-1.0, max_value=1.0),
+    )
+    tsim.done()
+    tsc.done()
+
+    tb = root.table("baseline")
+    baseline = BaselineGains(
+        osc_kp_t=tb.float("osc_kp_t", 400.0, min_value=0.0),
+        osc_kp_r=tb.float("osc_kp_r", 400.0, min_value=0.0),
+        osc_zeta=tb.float("osc_zeta", 0.8, min_value=0.0, strict_min=True),
+        joint_kp=_per_joint(tb, "joint_kp", n, 400.0),
+        joint_zeta=tb.float("joint_zeta", 0.8, min_value=0.0, strict_min=True),
+        clik_gain=tb.float("clik_gain", 200.0, min_value=0.0, strict_min=True),
+        clik_damping=tb.float("clik_damping", 0.01, min_value=0.0),
+        posture_gain=tb.float("posture_gain", 2.0, min_value=0.0),
+    )
+    if baseline.clik_gain * control.dt >= 2.0:
+        raise ProblemError(path, "baseline.clik_gain",
+                           f"clik_gain × period must be < 2 for a stable CLIK step, got "
+                           f"{baseline.clik_gain * control.dt:g}")
+    tb.done()
+
+    # -- trajectories ----------------------------------------------------------
+    specs = []
+    for tr in root.table_list("trajectory"):
+        specs.append(_read_trajectory(tr, base, path))
+    if not specs:
+        raise ProblemError(path, "trajectory", "the problem needs at least one [[trajectory]]")
+    seen: set[str] = set()
+    for i, s in enumerate(specs):
+        if s.name in seen:
+            raise ProblemError(path, f"trajectory[{i}].name", f"name '{s.name}' is used twice")
+        seen.add(s.name)
+    for key in ("search",):  # read by later stages; accepted here
+        root.raw(key, None)
+    root.done()
+
+    p0, R0 = arm.tip_pose(arm.home)
+    refs = tuple(sample(s.name, s.kind, s.duration_s, rate, p0, R0) for s in specs)
+    digest = hashlib.sha256(path.read_bytes() + urdf_xml.encode()).hexdigest() if path.exists() else ""
+    prob = Problem(path=path, name=name, description=description, arm=arm, actuators=tuple(acts),
+                   control=control, sim=sim, scoring=scoring, baseline=baseline,
+                   trajectories=tuple(specs), references=refs, digest=digest,
+                   warnings=tuple(warnings))
+    if check_reach:
+        check_reachable(prob)
+    for w in warnings:
+        log.warning("%s", w)
+    return prob
+
+
+def check_reachable(prob: Problem) -> None:
+    """Raise when inverse kinematics cannot follow a trajectory within the joint limits."""
+    arm = prob.arm
+    for i, ref in enumerate(prob.references):
+        sol = clik(arm, ref, prob.control.task_axes, prob.baseline.clik_gain,
+                   prob.baseline.clik_damping, prob.baseline.posture_gain)
+        ax = np.array(prob.control.task_axes)
+        mask_p = ax[ax < 3]
+        mask_r = ax[ax >= 3]
+        ep = np.linalg.norm(sol.error[:, mask_p], axis=1) if mask_p.size else np.zeros(len(ref.t))
+        er = np.linalg.norm(sol.error[:, mask_r], axis=1) if mask_r.size else np.zeros(len(ref.t))
+        bad = np.flatnonzero((ep > REACH_POS_M) | (er > REACH_ROT_RAD))
+        key = f"trajectory[{i}]"
+        if bad.size:
+            k = int(bad[0])
+            x, y, z = ref.p[k]
+            raise ProblemError(
+                prob.path, key,
+                f"'{ref.name}' is out of reach at t={ref.t[k]:.3f} s, point ({x:.3f}, {y:.3f}, "
+                f"{z:.3f}) m: inverse kinematics is {ep[k] * 1e3:.1f} mm / "
+                f"{math.degrees(er[k]):.2f} deg off",
+            )
+        lo = sol.q < np.array(arm.lower)
+        hi = sol.q > np.array(arm.upper)
+        viol = np.argwhere(lo | hi)
+        if viol.size:
+            k, j = (int(v) for v in viol[0])
+            x, y, z = ref.p[k]
+            raise ProblemError(
+                prob.path, key,
+                f"'{ref.name}' needs {arm.joint_names[j]} beyond its limits at t={ref.t[k]:.3f} s, "
+                f"point ({x:.3f}, {y:.3f}, {z:.3f}) m",
+            )
+
+
+# -- helpers -------------------------------------------------------------------
+def _joint_names(urdf_xml: str, urdf_path: Path, tip: str) -> list[str]:
+    from .arm import build_model
+
+    model = build_model(urdf_xml, urdf_path)
+    return list(model.names[1:])
+
+
+def _with_effort(arm: Arm, effort: np.ndarray) -> Arm:
+    e = effort.copy()
+    e.setflags(write=False)
+    arm.effort = e
+    return arm
+
+
+def _show(arm: Arm, j: int, value: float) -> str:
+    if arm.model.joints[j + 1].shortname().startswith("JointModelR"):
+        return f"{math.degrees(value):.1f}"
+    return f"{value:g}"
+
+
+def _per_joint(t: TableReader, key: str, n: int, default: float) -> tuple[float, ...]:
+    v = t.raw(key, default)
+    if isinstance(v, list):
+        vals = t.floats(key, min_value=0.0)
+        if len(vals) != n:
+            raise t.fail(key, f"needs 1 or {n} values (one per joint), got {len(vals)}")
+        return tuple(vals)
+    return (t.float(key, default, min_value=0.0),)
+
+
+def _read_actuator(
+    t: TableReader, joint: str, rate: float, path: Path
+) -> tuple[JointActuator, float, str | None]:
+    kind = t.str("model", choices=tuple(ACTUATOR_MODELS))
+    _, keys = ACTUATOR_MODELS[kind]
+    params = {k: t.float(k) for k in keys}
+    for k, v in params.items():
+        if not v > 0.0:
+            raise t.fail(k, f"must be > 0, got {v:g}")
+    try:
+        model = make_model(kind, **params)
+    except ValueError as err:
+        raise t.fail(keys[0], str(err)) from err
+    nyq = rate / 2.0
+    if model.fastest_hz() >= nyq:
+        raise t.fail(keys[0], f"{model.fastest_hz():g} Hz is at or above the Nyquist frequency "
+                     f"{nyq:g} Hz of the {rate:g} Hz control rate")
+    delay_ms = t.float("delay_ms", 0.0, min_value=0.0, max_value=1000.0)
+    exact = delay_ms * rate / 1000.0
+    ticks = int(round(exact))
+    warn = None
+    if abs(exact - ticks) > 1e-9:
+        warn = (f"{path}: actuators.{joint}.delay_ms: {delay_ms:g} ms is not a whole number of "
+                f"{1000.0 / rate:g} ms periods; using {ticks} ({ticks * 1000.0 / rate:g} ms)")
+    other = {k for _, ks in ACTUATOR_MODELS.values() for k in ks} - set(keys)
+    for k in sorted(other):
+        if t.has(k):
+            raise t.fail(k, f"does not apply to model '{kind}' (it takes {', '.join(keys)})")
+    act = JointActuator(
+        joint=joint,
+        model=model,
+        delay_ticks=ticks,
+        effort_nm=t.float("effort_nm", math.inf, min_value=0.0, strict_min=True),
+        rate_limit_nm_s=t.float("rate_limit_nm_per_s", math.inf, min_value=0.0, strict_min=True),
+        coulomb_nm=t.float("coulomb_nm", 0.0, min_value=0.0),
+        viscous_nms=t.float("viscous_nms_per_rad", 0.0, min_value=0.0),
+    )
+    arm_j = t.float("armature_kgm2", 0.0, min_value=0.0)
+    return act, arm_j, warn
+
+
+def _read_kind(t: TableReader, kind: str, allowed: Sequence[str], base: Path, path: Path) -> Any:
+    if kind not in allowed:
+        raise t.fail("kind", f"'{kind}' is not one of {', '.join(allowed)}{suggestion(kind, allowed)}")
+    cls = TRAJECTORY_KINDS[kind]
+    if cls is CsvPoses:
+        f = t.str("file")
+        try:
+            return CsvPoses.from_file((base / f).resolve())
+        except ValueError as err:
+            raise t.fail("file", str(err)) from err
+    if cls is Combined:
+        tt = t.table("translation", required=True)
+        tr = t.table("rotation", required=True)
+        trans = _read_kind(tt, tt.str("kind"), TRANSLATION_KINDS, base, path)
+        rot = _read_kind(tr, tr.str("kind"), ROTATION_KINDS, base, path)
+        tt.done()
+        tr.done()
+        return Combined(trans, rot)
+    args: dict[str, Any] = {}
+    for f in dataclasses.fields(cls):
+        has_default = f.default is not dataclasses.MISSING
+        if "tuple" in str(f.type):
+            args[f.name] = t.floats(f.name, f.default, length=3) if has_default else t.floats(
+                f.name, length=3)
+        else:
+            args[f.name] = t.float(f.name, f.default) if has_default else t.float(f.name)
+    try:
+        return cls(**args)
+    except ValueError as err:
+        msg = str(err)
+        key = next((f.name for f in dataclasses.fields(cls) if msg.startswith(f.name)), "kind")
+        raise t.fail(key, msg) from err
+
+
+def _read_trajectory(t: TableReader, base: Path, path: Path) -> TrajectorySpec:
+    name = t.str("name")
+    duration = t.float("duration_s", min_value=0.0, strict_min=True)
+    if duration > 600.0:
+        raise t.fail("duration_s", f"{duration:g} s is longer than the 600 s this tool simulates")
+    kind_name = t.str("kind")
+    kind = _read_kind(t, kind_name, tuple(TRAJECTORY_KINDS), base, path)
+    t.done()
+    return TrajectorySpec(name=name, kind=kind, duration_s=duration)

@@ -1,0 +1,132 @@
+"""Terminal tables (rich) and results files. Everything a user sees is built here."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import sys
+import tempfile
+from collections.abc import Sequence
+from pathlib import Path
+
+from rich.console import Console
+from rich.markup import escape
+from rich.table import Table
+
+from .evaluate import Score
+from .problem import Problem
+
+SAFETY_SHORT = (
+    "Simulation only. Unmodelled friction, elasticity, noise and delay can destabilise gains "
+    "that pass here. First hardware trials at reduced speed, gains and torque limits, with a "
+    "tested emergency stop in reach and nobody in the workspace; follow the applicable "
+    "robot-safety standards (ISO 10218-1/-2), local codes and licensed practice."
+)
+
+
+def fmt(x: float | None, digits: int = 3) -> str:
+    """Number for a table: a dash for None or nan, 'inf' kept."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "–"
+    if isinstance(x, float) and math.isinf(x):
+        return "inf"
+    return f"{x:.{digits}g}" if abs(x) < 1e4 else f"{x:.3e}"
+
+
+def check_table(problem: Problem) -> list[Table]:
+    """Summary of a problem: joints with their drives, then the trajectory set."""
+    arm = problem.arm
+    tj = Table(title=f"{problem.name}: {arm.n} joints, tip '{arm.tip_frame}', "
+               f"control {problem.control.rate_hz:g} Hz")
+    any_rate = any(math.isfinite(a.rate_limit_nm_s) for a in problem.actuators)
+    cols = ["joint", "effort N·m", "actuator", "BW Hz", "delay ms", "friction C N·m / v N·m·s/rad"]
+    cols += ["rate N·m/s"] if any_rate else []
+    cols += ["home"]
+    for col in cols:
+        tj.add_column(col, justify="left" if col in ("joint", "actuator") else "right")
+    for j, a in enumerate(problem.actuators):
+        is_rev = arm.model.joints[j + 1].shortname().startswith("JointModelR")
+        home = f"{math.degrees(arm.home[j]):.1f}°" if is_rev else f"{arm.home[j]:.3f} m"
+        row = [arm.joint_names[j], fmt(a.effort_nm), a.model.describe(),
+               fmt(a.model.bandwidth_hz()), fmt(a.delay_ticks * problem.dt * 1e3),
+               f"{fmt(a.coulomb_nm)} / {fmt(a.viscous_nms)}"]
+        if any_rate:
+            row.append("none" if math.isinf(a.rate_limit_nm_s) else fmt(a.rate_limit_nm_s))
+        tj.add_row(*row, home)
+    tt = Table(title="trajectories")
+    for col in ("name", "kind", "duration s", "peak speed m/s", "peak rate deg/s"):
+        tt.add_column(col, justify="left" if col in ("name", "kind") else "right")
+    for spec, ref in zip(problem.trajectories, problem.references):
+        tt.add_row(spec.name, spec.kind.kind, fmt(spec.duration_s), fmt(ref.peak_speed),
+                   fmt(math.degrees(ref.peak_rate)))
+    return [tj, tt]
+
+
+def plant_line(problem: Problem) -> str:
+    """One line on how the plant differs from the model."""
+    d = problem.arm.deviation
+    parts = [f"payload {d.payload_kg:g} kg", f"mass scale {d.mass_scale:g}"]
+    if d.link_mass_scale:
+        parts.append("link scales " + ", ".join(f"{k} {v:g}" for k, v in d.link_mass_scale.items()))
+    parts.append(f"velocity noise σ {problem.sim.velocity_noise:g} rad/s (seed {problem.sim.seed})")
+    return "plant vs model: " + "; ".join(parts)
+
+
+def score_table(scores: Sequence[Score], reference: Score | None = None) -> Table:
+    """Rows per plan: aggregate figures, then one row per trajectory."""
+    t = Table(title="closed-loop scores (aggregate = mean over trajectories)")
+    cols = ("plan", "trajectory", "pos RMS mm", "pos max mm", "rot RMS deg",
+            "rot max deg", "τ RMS N·m", "peak τ/lim", "margin", "error idx",
+            "vs OSC", "feasible")
+    for c in cols:
+        t.add_column(c, justify="left" if c in ("plan", "trajectory", "feasible") else "right",
+                     overflow="fold")
+    for s in scores:
+        change = "–"
+        if reference is not None and reference is not s and math.isfinite(reference.error_index) \
+                and reference.error_index > 0 and math.isfinite(s.error_index):
+            change = f"{(s.error_index / reference.error_index - 1.0) * 100:+.0f} %"
+        feas = "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}"
+        t.add_row(
+            f"[bold]{escape(s.label)}[/]\n{escape(s.plan_text)}", "[bold]all[/]", fmt(s.pos_rms_mm), fmt(s.pos_max_mm),
+            fmt(s.rot_rms_deg), fmt(s.rot_max_deg), fmt(s.tau_rms_nm), fmt(s.peak_torque_ratio),
+            fmt(s.margin, 2), fmt(s.error_index), change, feas,
+        )
+        for i, tr in enumerate(s.trajectories):
+            m = tr.metrics
+            t.add_row("", tr.name, fmt(m.pos_rms_mm), fmt(m.pos_max_mm), fmt(m.rot_rms_deg),
+                      fmt(m.rot_max_deg), fmt(m.tau_rms_nm), fmt(m.peak_torque_ratio),
+                      fmt(tr.margin, 2), fmt(tr.error_index), "",
+                      "" if not tr.diverged else f"[red]{escape(tr.reason or '')}[/]",
+                      end_section=i == len(s.trajectories) - 1)
+    return t
+
+
+def write_atomic(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` via a temporary file and rename: never half a file."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def scores_json(scores: Sequence[Score]) -> str:
+    """The scores as a JSON list (see ``Score.to_dict``)."""
+    return json.dumps([s.to_dict() for s in scores], indent=2, allow_nan=False) + "\n"
+
+
+def console(stderr: bool = False) -> Console:
+    """A console; output that is not a terminal gets 160 columns so tables do not wrap."""
+    stream = sys.stderr if stderr else sys.stdout
+    width = None if stream.isatty() else 160
+    return Console(stderr=stderr, highlight=False, width=width)
