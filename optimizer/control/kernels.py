@@ -18,27 +18,29 @@ SINGULAR = 1
 def log3(R: np.ndarray, out: np.ndarray) -> None:
     """Rotation vector of ``R`` (the matrix logarithm, as a 3-vector) into ``out``."""
     tr = R[0, 0] + R[1, 1] + R[2, 2]
-    c = min(1.0, max(-1.0, 0.5 * (tr - 1.0)))
-    th = math.acos(c)
     vx = R[2, 1] - R[1, 2]
     vy = R[0, 2] - R[2, 0]
     vz = R[1, 0] - R[0, 1]
+    c = min(1.0, max(-1.0, 0.5 * (tr - 1.0)))
+    sn = 0.5 * math.sqrt(vx * vx + vy * vy + vz * vz)
+    th = math.atan2(sn, c)
     if th < 1e-6:
         f = 0.5 * (1.0 + th * th / 6.0)
         out[0] = f * vx
         out[1] = f * vy
         out[2] = f * vz
-    elif th > math.pi - 1e-4:
-        # near π: axis from the largest diagonal of (R + I)/2 = a aᵀ
+    elif th > 3.0:
+        # near π: a aᵀ = (sym(R) − cos θ I) / (1 − cos θ); take its largest column
         i = 0
         if R[1, 1] > R[i, i]:
             i = 1
         if R[2, 2] > R[i, i]:
             i = 2
-        d = math.sqrt(max(0.5 * (R[i, i] + 1.0), 1e-300))
-        a0 = 0.5 * (R[0, i] + (1.0 if i == 0 else 0.0)) / d
-        a1 = 0.5 * (R[1, i] + (1.0 if i == 1 else 0.0)) / d
-        a2 = 0.5 * (R[2, i] + (1.0 if i == 2 else 0.0)) / d
+        k = 1.0 - c
+        d = math.sqrt(max((R[i, i] - c) / k, 1e-300))
+        a0 = (0.5 * (R[0, i] + R[i, 0]) - (c if i == 0 else 0.0)) / (k * d)
+        a1 = (0.5 * (R[1, i] + R[i, 1]) - (c if i == 1 else 0.0)) / (k * d)
+        a2 = (0.5 * (R[2, i] + R[i, 2]) - (c if i == 2 else 0.0)) / (k * d)
         if a0 * vx + a1 * vy + a2 * vz < 0.0:
             a0, a1, a2 = -a0, -a1, -a2
         out[0] = th * a0

@@ -100,6 +100,7 @@ class TieredController:
         self.data = arm.model.createData()
         self._zero = np.zeros(n)
         self.ref: Reference | None = None
+        self._one_joint = n == 1
 
     def bind(self, ref: Reference) -> None:
         self.ref = ref
@@ -120,6 +121,9 @@ class TieredController:
         dJv = pin.getFrameClassicalAcceleration(model, data, fid, LWA).vector
         h = pin.nonLinearEffects(model, data, q, vm)
         Minv = pin.computeMinverse(model, data, q)
+        if self._one_joint:  # pinocchio hands a 6×1 Jacobian back as a vector
+            J6 = J6.reshape(6, 1)
+            Minv = np.atleast_2d(Minv)
         return int(
             kernels.tiered_command(
                 oMf.translation, oMf.rotation, J6, dJv, h, Minv, q, vm,

@@ -1,0 +1,24 @@
+"""Shared fixtures: loaded problems are cached per session (loading runs inverse kinematics)."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from problems import DEMO, PLANAR  # noqa: E402
+
+from optimizer.problem import Problem, load_problem  # noqa: E402
+
+
+@pytest.fixture(scope="session")
+def demo() -> Problem:
+    return load_problem(DEMO)
+
+
+@pytest.fixture(scope="session")
+def planar() -> Problem:
+    return load_problem(PLANAR)
