@@ -79,17 +79,19 @@ class Arm:
         self,
         urdf_xml: str,
         tip_frame: str,
-        home: Sequence[float] | None = None,
+        home: Sequence[float] | np.ndarray | None = None,
         deviation: PlantDeviation | None = None,
         source: object = None,
-        armature: Sequence[float] | None = None,
+        armature: Sequence[float] | np.ndarray | None = None,
     ) -> None:
         self.source = source
         self.model = build_model(urdf_xml, source)
         if not self.model.existFrame(tip_frame):
             names = [f.name for f in self.model.frames if f.name != "universe"]
             raise ProblemError(
-                source, "tip_frame", f"frame '{tip_frame}' not in the URDF; frames: {', '.join(names)}"
+                source,
+                "tip_frame",
+                f"frame '{tip_frame}' not in the URDF; frames: {', '.join(names)}",
             )
         if armature is not None:
             self.model.armature = np.asarray(armature, dtype=float).copy()

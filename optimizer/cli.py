@@ -3,14 +3,19 @@
 from __future__ import annotations
 
 import argparse
+import functools
 import logging
 import sys
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from . import __version__
 from .exceptions import InputError, TierplanError
+
+if TYPE_CHECKING:
+    from .evaluate import Score
 
 EXIT_OK = 0
 EXIT_FAILED = 1
@@ -34,22 +39,35 @@ def _parser() -> argparse.ArgumentParser:
 
     s = sub.add_parser("score", help="simulate plans (and baselines) on a problem's trajectories")
     s.add_argument("problem", type=Path, help="problem file (TOML)")
-    s.add_argument("--plan", type=Path, action="append", default=[], metavar="FILE",
-                   help="plan file (TOML); repeat for several")
-    s.add_argument("--baselines", action="store_true",
-                   help="also score single-tier OSC and joint-space CLIK + PD at the gains of "
-                   "the problem's [baseline] table")
+    s.add_argument(
+        "--plan",
+        type=Path,
+        action="append",
+        default=[],
+        metavar="FILE",
+        help="plan file (TOML); repeat for several",
+    )
+    s.add_argument(
+        "--baselines",
+        action="store_true",
+        help="also score single-tier OSC and joint-space CLIK + PD at the gains of "
+        "the problem's [baseline] table",
+    )
     s.add_argument("--json", type=Path, metavar="FILE", help="write the scores as JSON")
-    s.add_argument("--no-margin", action="store_true",
-                   help="skip the linearised stability margin (faster, margin shows as –)")
+    s.add_argument(
+        "--no-margin",
+        action="store_true",
+        help="skip the linearised stability margin (faster, margin shows as –)",
+    )
     return p
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     args = _parser().parse_args(argv)
-    logging.basicConfig(level=logging.DEBUG if args.debug else logging.WARNING,
-                        format="%(levelname)s: %(message)s")
+    logging.basicConfig(
+        level=logging.DEBUG if args.debug else logging.WARNING, format="%(levelname)s: %(message)s"
+    )
     if not args.debug:
         warnings.filterwarnings("ignore")
     if args.command is None:
@@ -92,8 +110,10 @@ def _check(args: argparse.Namespace) -> int:
     for t in check_table(prob):
         out.print(t)
     out.print(plant_line(prob))
-    out.print(f"[green]ok[/]: {args.problem} is valid; every trajectory is reachable within the "
-              "joint limits.")
+    out.print(
+        f"[green]ok[/]: {args.problem} is valid; every trajectory is reachable within the "
+        "joint limits."
+    )
     return EXIT_OK
 
 
@@ -105,28 +125,36 @@ def _score(args: argparse.Namespace) -> int:
     prob = _load(args.problem)
     plans = [load_plan(p, prob.arm.joint_names) for p in args.plan]
     if not plans and not args.baselines:
-        print("tierplan: error: score needs at least one --plan FILE or --baselines",
-              file=sys.stderr)
+        print(
+            "tierplan: error: score needs at least one --plan FILE or --baselines", file=sys.stderr
+        )
         return EXIT_INPUT
     out = console()
     for w in prob.warnings:
         out.print(f"[yellow]warning:[/] {w}")
     kw = {"compute_margin": not args.no_margin}
     scores = []
-    jobs = [(pl.label, lambda pl=pl: score_plan(prob, pl, **kw)) for pl in plans]
+    jobs: list[tuple[str, Callable[[], Score]]] = [
+        (pl.label, functools.partial(score_plan, prob, pl, **kw)) for pl in plans
+    ]
     if args.baselines:
-        jobs += [("baseline: single-tier OSC", lambda: score_osc_baseline(prob, **kw)),
-                 ("baseline: joint-space", lambda: score_joint_baseline(prob, **kw))]
+        jobs += [
+            ("baseline: single-tier OSC", functools.partial(score_osc_baseline, prob, **kw)),
+            ("baseline: joint-space", functools.partial(score_joint_baseline, prob, **kw)),
+        ]
     with out.status("simulating…") as status:
         for i, (label, job) in enumerate(jobs, start=1):
-            status.update(f"simulating {label} ({i}/{len(jobs)}) on {len(prob.references)} "
-                          "trajectories…")
+            status.update(
+                f"simulating {label} ({i}/{len(jobs)}) on {len(prob.references)} trajectories…"
+            )
             scores.append(job())
     ref = next((s for s in scores if s.kind == "osc"), scores[0])
     out.print(score_table(scores, reference=ref))
-    out.print(f"'vs OSC' compares the error index with '{ref.label}'. "
-              f"Margin = 1 − spectral radius of the linearised one-period loop (< "
-              f"{prob.scoring.min_margin:g}: unstable).")
+    out.print(
+        f"'vs OSC' compares the error index with '{ref.label}'. "
+        f"Margin = 1 − spectral radius of the linearised one-period loop (< "
+        f"{prob.scoring.min_margin:g}: unstable)."
+    )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     if args.json:
         write_atomic(args.json, scores_json(scores))

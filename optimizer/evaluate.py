@@ -83,11 +83,19 @@ class Score:
         """JSON-ready dict; non-finite numbers become None."""
         d = {k: v for k, v in asdict(self).items() if k != "trajectories"}
         d["trajectories"] = [
-            {"name": t.name, **asdict(t.metrics), "margin": t.margin, "diverged": t.diverged,
-             "reason": t.reason, "steps": t.steps, "error_index": t.error_index}
+            {
+                "name": t.name,
+                **asdict(t.metrics),
+                "margin": t.margin,
+                "diverged": t.diverged,
+                "reason": t.reason,
+                "steps": t.steps,
+                "error_index": t.error_index,
+            }
             for t in self.trajectories
         ]
-        return _finite(d)  # type: ignore[no-any-return]
+        out: dict[str, object] = _finite(d)  # type: ignore[assignment]
+        return out
 
 
 def _finite(x: object) -> object:
@@ -105,18 +113,28 @@ def plan_controller(problem: Problem, plan: Plan, kind: str = "plan") -> TieredC
     return TieredController(problem.arm, plan, problem.control, kind=kind)
 
 
-def osc_plan(problem: Problem, kp_t: float, kp_r: float, zeta: float,
-             label: str = "single-tier OSC") -> Plan:
+def osc_plan(
+    problem: Problem, kp_t: float, kp_r: float, zeta: float, label: str = "single-tier OSC"
+) -> Plan:
     """Single-tier OSC over every joint."""
     return single_tier(problem.arm.n, kp_t, kp_r, zeta, problem.arm.joint_names, label=label)
 
 
-def joint_controller(problem: Problem, kp: object, zeta: float,
-                     label: str = "joint-space CLIK + PD") -> JointSpaceController:
+def joint_controller(
+    problem: Problem, kp: object, zeta: float, label: str = "joint-space CLIK + PD"
+) -> JointSpaceController:
     """The joint-space baseline with the problem's CLIK settings."""
     b = problem.baseline
-    return JointSpaceController(problem.arm, problem.control, np.asarray(kp, dtype=float), zeta,
-                                b.clik_gain, b.clik_damping, b.posture_gain, label=label)
+    return JointSpaceController(
+        problem.arm,
+        problem.control,
+        np.asarray(kp, dtype=float),
+        zeta,
+        b.clik_gain,
+        b.clik_damping,
+        b.posture_gain,
+        label=label,
+    )
 
 
 def make_loop(problem: Problem, controller: Controller) -> ClosedLoop:
@@ -127,7 +145,10 @@ def make_loop(problem: Problem, controller: Controller) -> ClosedLoop:
 def trajectory_error(problem: Problem, m: TrackMetrics) -> float:
     """Weighted normalised RMS error of one trajectory [-]."""
     s = problem.scoring
-    return s.pos_weight * m.pos_rms_mm / s.pos_scale_mm + s.rot_weight * m.rot_rms_deg / s.rot_scale_deg
+    return (
+        s.pos_weight * m.pos_rms_mm / s.pos_scale_mm
+        + s.rot_weight * m.rot_rms_deg / s.rot_scale_deg
+    )
 
 
 def evaluate(
@@ -158,7 +179,9 @@ def evaluate(
         if keep_rollouts is not None:
             keep_rollouts.append(ro)
         m = track_metrics(ro, loop.effort, s.settle_s, problem.dt)
-        margin = loop_margin(loop, ro.snapshots) if (compute_margin and not ro.diverged) else math.nan
+        margin = (
+            loop_margin(loop, ro.snapshots) if (compute_margin and not ro.diverged) else math.nan
+        )
         err = math.inf if ro.diverged else trajectory_error(problem, m)
         per.append(TrajectoryScore(ref.name, m, margin, ro.diverged, ro.reason, ro.steps, err))
         if on_trajectory is not None:
@@ -175,8 +198,9 @@ def _aggregate(values: list[float], how: str) -> float:
     return float(max(values)) if how == "worst" else float(np.mean(values))
 
 
-def _score(problem: Problem, controller: Controller, label: str, plan_text: str,
-           per: list[TrajectoryScore]) -> Score:
+def _score(
+    problem: Problem, controller: Controller, label: str, plan_text: str, per: list[TrajectoryScore]
+) -> Score:
     s = problem.scoring
     reason = next((f"{t.name}: {t.reason}" for t in per if t.diverged), None)
     margins = [t.margin for t in per if not math.isnan(t.margin)]
@@ -229,13 +253,18 @@ def score_osc_baseline(problem: Problem, **kw: object) -> Score:
 def joint_gains_text(kp: tuple[float, ...] | np.ndarray, zeta: float) -> str:
     """Joint-space gains in one line."""
     vals = np.atleast_1d(np.asarray(kp, dtype=float))
-    body = f"kp {vals[0]:.4g}" if np.all(vals == vals[0]) else "kp " + "/".join(f"{v:.3g}" for v in vals)
+    body = (
+        f"kp {vals[0]:.4g}"
+        if np.all(vals == vals[0])
+        else "kp " + "/".join(f"{v:.3g}" for v in vals)
+    )
     return f"joint PD {body} z{zeta:.3g}"
 
 
 def score_joint_baseline(problem: Problem, **kw: object) -> Score:
     """Joint-space CLIK + PD at the problem's baseline gains."""
     b = problem.baseline
-    ctrl = joint_controller(problem, b.joint_kp, b.joint_zeta, label="baseline: joint-space CLIK + PD")
-    return evaluate(problem, ctrl, ctrl.label, joint_gains_text(b.joint_kp, b.joint_zeta),
-                    **kw)  # type: ignore[arg-type]
+    ctrl = joint_controller(
+        problem, b.joint_kp, b.joint_zeta, label="baseline: joint-space CLIK + PD"
+    )
+    return evaluate(problem, ctrl, ctrl.label, joint_gains_text(b.joint_kp, b.joint_zeta), **kw)  # type: ignore[arg-type]

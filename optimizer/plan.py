@@ -129,7 +129,9 @@ class Plan:
             if self.joint_names and tier.joints == tuple(range(len(self.joint_names))):
                 lines.append('joints = "all"')
             else:
-                lines.append("joints = [" + ", ".join(_quote(self._name(j)) for j in tier.joints) + "]")
+                lines.append(
+                    "joints = [" + ", ".join(_quote(self._name(j)) for j in tier.joints) + "]"
+                )
             lines += [
                 f"kp_t = {tier.kp_t!r}",
                 f"kp_r = {tier.kp_r!r}",
@@ -144,11 +146,19 @@ def _quote(s: str) -> str:
     return '"' + s.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
-def single_tier(n: int, kp_t: float, kp_r: float, zeta: float, joint_names: Sequence[str] = (),
-                label: str = "single-tier OSC") -> Plan:
+def single_tier(
+    n: int,
+    kp_t: float,
+    kp_r: float,
+    zeta: float,
+    joint_names: Sequence[str] = (),
+    label: str = "single-tier OSC",
+) -> Plan:
     """Single-tier OSC: one tier over all ``n`` joints."""
     return Plan(
-        tiers=(Tier(tuple(range(n)), kp_t, kp_r, zeta),), label=label, joint_names=tuple(joint_names)
+        tiers=(Tier(tuple(range(n)), kp_t, kp_r, zeta),),
+        label=label,
+        joint_names=tuple(joint_names),
     )
 
 
@@ -172,7 +182,8 @@ def parse_plan(data: dict[str, Any], joint_names: Sequence[str], path: object) -
             unknown = [s for s in spec if s not in joint_names]
             if unknown:
                 raise PlanError(
-                    path, key,
+                    path,
+                    key,
                     f"unknown joint '{unknown[0]}'{suggestion(unknown[0], joint_names)}; "
                     f"joints: {', '.join(joint_names)}",
                 )

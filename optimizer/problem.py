@@ -159,7 +159,9 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     dev_args: dict[str, Any] = {}
     dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0)
     dev_args["payload_offset_m"] = tp.floats("payload_offset_m", (0.0, 0.0, 0.0), length=3)
-    dev_args["payload_radius_m"] = tp.float("payload_radius_m", 0.03, min_value=0.0, strict_min=True)
+    dev_args["payload_radius_m"] = tp.float(
+        "payload_radius_m", 0.03, min_value=0.0, strict_min=True
+    )
     dev_args["mass_scale"] = tp.float("mass_scale", 1.0, min_value=0.0, strict_min=True)
     tl = tp.table("link_mass_scale")
     lms = {k: tl.float(k, min_value=0.0, strict_min=True) for k in list(tl.data)}
@@ -179,14 +181,19 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     for key in list(tacts.data):
         if key != "default" and key not in names:
             raise ProblemError(
-                path, f"actuators.{key}",
-                f"no joint named '{key}' in the URDF{suggestion(key, names)}; joints: {', '.join(names)}",
+                path,
+                f"actuators.{key}",
+                f"no joint named '{key}' in the URDF{suggestion(key, names)}; "
+                f"joints: {', '.join(names)}",
             )
     for j, jname in enumerate(names):
         if not tacts.has(jname) and default is None:
-            raise ProblemError(path, f"actuators.{jname}",
-                               f"joint '{jname}' has no actuator: add an [actuators.{jname}] table "
-                               "(or an [actuators.default] table)")
+            raise ProblemError(
+                path,
+                f"actuators.{jname}",
+                f"joint '{jname}' has no actuator: add an [actuators.{jname}] table "
+                "(or an [actuators.default] table)",
+            )
         own = tacts.data.get(jname, {})
         merged = dict(default.data) if default is not None else {}
         if not isinstance(own, dict):
@@ -209,11 +216,19 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         home = np.zeros(n)
     else:
         if len(home_raw) != n:
-            raise ProblemError(path, "arm.home", f"needs {n} values (one per joint), got {len(home_raw)}")
+            raise ProblemError(
+                path, "arm.home", f"needs {n} values (one per joint), got {len(home_raw)}"
+            )
         home = np.array(home_raw, dtype=float)
     try:
-        arm = Arm(urdf_xml, tip, home=None, deviation=PlantDeviation(**dev_args), source=urdf_path,
-                  armature=armature)
+        arm = Arm(
+            urdf_xml,
+            tip,
+            home=None,
+            deviation=PlantDeviation(**dev_args),
+            source=urdf_path,
+            armature=armature,
+        )
     except ProblemError as err:
         if err.key.startswith("plant."):
             raise ProblemError(path, err.key, err.reason) from err
@@ -221,23 +236,38 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
             raise ProblemError(path, "arm.tip_frame", err.reason) from err
         raise
     # home: degrees for revolute joints, metres for prismatic ones
-    home_q = np.array([
-        math.radians(h) if arm.model.joints[j + 1].shortname().startswith("JointModelR") else h
-        for j, h in enumerate(home)
-    ])
+    home_q = np.array(
+        [
+            math.radians(h) if arm.model.joints[j + 1].shortname().startswith("JointModelR") else h
+            for j, h in enumerate(home)
+        ]
+    )
     for j in range(n):
         if not (arm.lower[j] <= home_q[j] <= arm.upper[j]):
-            raise ProblemError(path, "arm.home", f"{names[j]} = {home[j]:g} is outside its URDF limits "
-                               f"[{_show(arm, j, arm.lower[j])}, {_show(arm, j, arm.upper[j])}]")
-    arm = Arm(urdf_xml, tip, home=home_q, deviation=PlantDeviation(**dev_args), source=urdf_path,
-              armature=armature)
+            raise ProblemError(
+                path,
+                "arm.home",
+                f"{names[j]} = {home[j]:g} is outside its URDF limits "
+                f"[{_show(arm, j, arm.lower[j])}, {_show(arm, j, arm.upper[j])}]",
+            )
+    arm = Arm(
+        urdf_xml,
+        tip,
+        home=home_q,
+        deviation=PlantDeviation(**dev_args),
+        source=urdf_path,
+        armature=armature,
+    )
     effort = np.array(arm.effort)
     acts = []
     for j, a in enumerate(act_specs):
         eff = a.effort_nm if math.isfinite(a.effort_nm) else float(effort[j])
         if not eff > 0.0:
-            raise ProblemError(path, f"actuators.{names[j]}.effort_nm",
-                               "URDF effort limit is 0: give effort_nm here")
+            raise ProblemError(
+                path,
+                f"actuators.{names[j]}.effort_nm",
+                "URDF effort limit is 0: give effort_nm here",
+            )
         acts.append(dataclasses.replace(a, effort_nm=eff))
     arm = _with_effort(arm, np.array([a.effort_nm for a in acts]))
 
@@ -245,16 +275,21 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     axes_names = control_tab.strings("task_axes", AXES)
     for a in axes_names:
         if a not in AXES:
-            raise ProblemError(path, "control.task_axes", f"'{a}' is not an axis; use {', '.join(AXES)}")
+            raise ProblemError(
+                path, "control.task_axes", f"'{a}' is not an axis; use {', '.join(AXES)}"
+            )
     if len(set(axes_names)) != len(axes_names) or not axes_names:
-        raise ProblemError(path, "control.task_axes", "must list each axis at most once, at least one")
+        raise ProblemError(
+            path, "control.task_axes", "must list each axis at most once, at least one"
+        )
     axes = tuple(sorted(AXES.index(a) for a in axes_names))
     ns = _per_joint(control_tab, "null_stiffness_nm_per_rad", n, 0.0)
     nd = _per_joint(control_tab, "null_damping_nms_per_rad", n, 0.0)
     lam = control_tab.float("tier_damping", 1e-4, min_value=0.0)
     control_tab.done()
-    control = ControlSettings(rate_hz=rate, task_axes=axes, null_stiffness=ns, null_damping=nd,
-                              tier_damping=lam)
+    control = ControlSettings(
+        rate_hz=rate, task_axes=axes, null_stiffness=ns, null_damping=nd, tier_damping=lam
+    )
 
     tsim = root.table("simulation")
     tsense = root.table("sensing")
@@ -292,9 +327,12 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         posture_gain=tb.float("posture_gain", 2.0, min_value=0.0),
     )
     if baseline.clik_gain * control.dt >= 2.0:
-        raise ProblemError(path, "baseline.clik_gain",
-                           f"clik_gain × period must be < 2 for a stable CLIK step, got "
-                           f"{baseline.clik_gain * control.dt:g}")
+        raise ProblemError(
+            path,
+            "baseline.clik_gain",
+            f"clik_gain × period must be < 2 for a stable CLIK step, got "
+            f"{baseline.clik_gain * control.dt:g}",
+        )
     tb.done()
 
     # -- trajectories ----------------------------------------------------------
@@ -314,15 +352,28 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
 
     p0, R0 = arm.tip_pose(arm.home)
     refs = tuple(sample(s.name, s.kind, s.duration_s, rate, p0, R0) for s in specs)
-    digest = hashlib.sha256(path.read_bytes() + urdf_xml.encode()).hexdigest() if path.exists() else ""
-    prob = Problem(path=path, name=name, description=description, arm=arm, actuators=tuple(acts),
-                   control=control, sim=sim, scoring=scoring, baseline=baseline,
-                   trajectories=tuple(specs), references=refs, digest=digest,
-                   warnings=tuple(warnings))
+    digest = (
+        hashlib.sha256(path.read_bytes() + urdf_xml.encode()).hexdigest() if path.exists() else ""
+    )
+    prob = Problem(
+        path=path,
+        name=name,
+        description=description,
+        arm=arm,
+        actuators=tuple(acts),
+        control=control,
+        sim=sim,
+        scoring=scoring,
+        baseline=baseline,
+        trajectories=tuple(specs),
+        references=refs,
+        digest=digest,
+        warnings=tuple(warnings),
+    )
     if check_reach:
         check_reachable(prob)
     for w in warnings:
-        log.warning("%s", w)
+        log.debug("%s", w)  # the caller shows Problem.warnings
     return prob
 
 
@@ -330,8 +381,14 @@ def check_reachable(prob: Problem) -> None:
     """Raise when inverse kinematics cannot follow a trajectory within the joint limits."""
     arm = prob.arm
     for i, ref in enumerate(prob.references):
-        sol = clik(arm, ref, prob.control.task_axes, prob.baseline.clik_gain,
-                   prob.baseline.clik_damping, prob.baseline.posture_gain)
+        sol = clik(
+            arm,
+            ref,
+            prob.control.task_axes,
+            prob.baseline.clik_gain,
+            prob.baseline.clik_damping,
+            prob.baseline.posture_gain,
+        )
         ax = np.array(prob.control.task_axes)
         mask_p = ax[ax < 3]
         mask_r = ax[ax >= 3]
@@ -343,7 +400,8 @@ def check_reachable(prob: Problem) -> None:
             k = int(bad[0])
             x, y, z = ref.p[k]
             raise ProblemError(
-                prob.path, key,
+                prob.path,
+                key,
                 f"'{ref.name}' is out of reach at t={ref.t[k]:.3f} s, point ({x:.3f}, {y:.3f}, "
                 f"{z:.3f}) m: inverse kinematics is {ep[k] * 1e3:.1f} mm / "
                 f"{math.degrees(er[k]):.2f} deg off",
@@ -355,7 +413,8 @@ def check_reachable(prob: Problem) -> None:
             k, j = (int(v) for v in viol[0])
             x, y, z = ref.p[k]
             raise ProblemError(
-                prob.path, key,
+                prob.path,
+                key,
                 f"'{ref.name}' needs {arm.joint_names[j]} beyond its limits at t={ref.t[k]:.3f} s, "
                 f"point ({x:.3f}, {y:.3f}, {z:.3f}) m",
             )
@@ -407,15 +466,20 @@ def _read_actuator(
         raise t.fail(keys[0], str(err)) from err
     nyq = rate / 2.0
     if model.fastest_hz() >= nyq:
-        raise t.fail(keys[0], f"{model.fastest_hz():g} Hz is at or above the Nyquist frequency "
-                     f"{nyq:g} Hz of the {rate:g} Hz control rate")
+        raise t.fail(
+            keys[0],
+            f"{model.fastest_hz():g} Hz is at or above the Nyquist frequency "
+            f"{nyq:g} Hz of the {rate:g} Hz control rate",
+        )
     delay_ms = t.float("delay_ms", 0.0, min_value=0.0, max_value=1000.0)
     exact = delay_ms * rate / 1000.0
     ticks = int(round(exact))
     warn = None
     if abs(exact - ticks) > 1e-9:
-        warn = (f"{path}: actuators.{joint}.delay_ms: {delay_ms:g} ms is not a whole number of "
-                f"{1000.0 / rate:g} ms periods; using {ticks} ({ticks * 1000.0 / rate:g} ms)")
+        warn = (
+            f"{path}: actuators.{joint}.delay_ms: {delay_ms:g} ms is not a whole number of "
+            f"{1000.0 / rate:g} ms periods; using {ticks} ({ticks * 1000.0 / rate:g} ms)"
+        )
     other = {k for _, ks in ACTUATOR_MODELS.values() for k in ks} - set(keys)
     for k in sorted(other):
         if t.has(k):
@@ -435,7 +499,9 @@ def _read_actuator(
 
 def _read_kind(t: TableReader, kind: str, allowed: Sequence[str], base: Path, path: Path) -> Any:
     if kind not in allowed:
-        raise t.fail("kind", f"'{kind}' is not one of {', '.join(allowed)}{suggestion(kind, allowed)}")
+        raise t.fail(
+            "kind", f"'{kind}' is not one of {', '.join(allowed)}{suggestion(kind, allowed)}"
+        )
     cls = TRAJECTORY_KINDS[kind]
     if cls is CsvPoses:
         f = t.str("file")
@@ -455,8 +521,9 @@ def _read_kind(t: TableReader, kind: str, allowed: Sequence[str], base: Path, pa
     for f in dataclasses.fields(cls):
         has_default = f.default is not dataclasses.MISSING
         if "tuple" in str(f.type):
-            args[f.name] = t.floats(f.name, f.default, length=3) if has_default else t.floats(
-                f.name, length=3)
+            args[f.name] = (
+                t.floats(f.name, f.default, length=3) if has_default else t.floats(f.name, length=3)
+            )
         else:
             args[f.name] = t.float(f.name, f.default) if has_default else t.float(f.name)
     try:

@@ -37,8 +37,10 @@ def fmt(x: float | None, digits: int = 3) -> str:
 def check_table(problem: Problem) -> list[Table]:
     """Summary of a problem: joints with their drives, then the trajectory set."""
     arm = problem.arm
-    tj = Table(title=f"{problem.name}: {arm.n} joints, tip '{arm.tip_frame}', "
-               f"control {problem.control.rate_hz:g} Hz")
+    tj = Table(
+        title=f"{problem.name}: {arm.n} joints, tip '{arm.tip_frame}', "
+        f"control {problem.control.rate_hz:g} Hz"
+    )
     any_rate = any(math.isfinite(a.rate_limit_nm_s) for a in problem.actuators)
     cols = ["joint", "effort N·m", "actuator", "BW Hz", "delay ms", "friction C N·m / v N·m·s/rad"]
     cols += ["rate N·m/s"] if any_rate else []
@@ -48,9 +50,14 @@ def check_table(problem: Problem) -> list[Table]:
     for j, a in enumerate(problem.actuators):
         is_rev = arm.model.joints[j + 1].shortname().startswith("JointModelR")
         home = f"{math.degrees(arm.home[j]):.1f}°" if is_rev else f"{arm.home[j]:.3f} m"
-        row = [arm.joint_names[j], fmt(a.effort_nm), a.model.describe(),
-               fmt(a.model.bandwidth_hz()), fmt(a.delay_ticks * problem.dt * 1e3),
-               f"{fmt(a.coulomb_nm)} / {fmt(a.viscous_nms)}"]
+        row = [
+            arm.joint_names[j],
+            fmt(a.effort_nm),
+            a.model.describe(),
+            fmt(a.model.bandwidth_hz()),
+            fmt(a.delay_ticks * problem.dt * 1e3),
+            f"{fmt(a.coulomb_nm)} / {fmt(a.viscous_nms)}",
+        ]
         if any_rate:
             row.append("none" if math.isinf(a.rate_limit_nm_s) else fmt(a.rate_limit_nm_s))
         tj.add_row(*row, home)
@@ -58,8 +65,13 @@ def check_table(problem: Problem) -> list[Table]:
     for col in ("name", "kind", "duration s", "peak speed m/s", "peak rate deg/s"):
         tt.add_column(col, justify="left" if col in ("name", "kind") else "right")
     for spec, ref in zip(problem.trajectories, problem.references):
-        tt.add_row(spec.name, spec.kind.kind, fmt(spec.duration_s), fmt(ref.peak_speed),
-                   fmt(math.degrees(ref.peak_rate)))
+        tt.add_row(
+            spec.name,
+            spec.kind.kind,
+            fmt(spec.duration_s),
+            fmt(ref.peak_speed),
+            fmt(math.degrees(ref.peak_rate)),
+        )
     return [tj, tt]
 
 
@@ -76,30 +88,68 @@ def plant_line(problem: Problem) -> str:
 def score_table(scores: Sequence[Score], reference: Score | None = None) -> Table:
     """Rows per plan: aggregate figures, then one row per trajectory."""
     t = Table(title="closed-loop scores (aggregate = mean over trajectories)")
-    cols = ("plan", "trajectory", "pos RMS mm", "pos max mm", "rot RMS deg",
-            "rot max deg", "τ RMS N·m", "peak τ/lim", "margin", "error idx",
-            "vs OSC", "feasible")
+    cols = (
+        "plan",
+        "trajectory",
+        "pos RMS mm",
+        "pos max mm",
+        "rot RMS deg",
+        "rot max deg",
+        "τ RMS N·m",
+        "peak τ/lim",
+        "margin",
+        "error idx",
+        "vs OSC",
+        "feasible",
+    )
     for c in cols:
-        t.add_column(c, justify="left" if c in ("plan", "trajectory", "feasible") else "right",
-                     overflow="fold")
+        t.add_column(
+            c,
+            justify="left" if c in ("plan", "trajectory", "feasible") else "right",
+            overflow="fold",
+        )
     for s in scores:
         change = "–"
-        if reference is not None and reference is not s and math.isfinite(reference.error_index) \
-                and reference.error_index > 0 and math.isfinite(s.error_index):
+        if (
+            reference is not None
+            and reference is not s
+            and math.isfinite(reference.error_index)
+            and reference.error_index > 0
+            and math.isfinite(s.error_index)
+        ):
             change = f"{(s.error_index / reference.error_index - 1.0) * 100:+.0f} %"
         feas = "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}"
         t.add_row(
-            f"[bold]{escape(s.label)}[/]\n{escape(s.plan_text)}", "[bold]all[/]", fmt(s.pos_rms_mm), fmt(s.pos_max_mm),
-            fmt(s.rot_rms_deg), fmt(s.rot_max_deg), fmt(s.tau_rms_nm), fmt(s.peak_torque_ratio),
-            fmt(s.margin, 2), fmt(s.error_index), change, feas,
+            f"[bold]{escape(s.label)}[/]\n{escape(s.plan_text)}",
+            "[bold]all[/]",
+            fmt(s.pos_rms_mm),
+            fmt(s.pos_max_mm),
+            fmt(s.rot_rms_deg),
+            fmt(s.rot_max_deg),
+            fmt(s.tau_rms_nm),
+            fmt(s.peak_torque_ratio),
+            fmt(s.margin, 2),
+            fmt(s.error_index),
+            change,
+            feas,
         )
         for i, tr in enumerate(s.trajectories):
             m = tr.metrics
-            t.add_row("", tr.name, fmt(m.pos_rms_mm), fmt(m.pos_max_mm), fmt(m.rot_rms_deg),
-                      fmt(m.rot_max_deg), fmt(m.tau_rms_nm), fmt(m.peak_torque_ratio),
-                      fmt(tr.margin, 2), fmt(tr.error_index), "",
-                      "" if not tr.diverged else f"[red]{escape(tr.reason or '')}[/]",
-                      end_section=i == len(s.trajectories) - 1)
+            t.add_row(
+                "",
+                tr.name,
+                fmt(m.pos_rms_mm),
+                fmt(m.pos_max_mm),
+                fmt(m.rot_rms_deg),
+                fmt(m.rot_max_deg),
+                fmt(m.tau_rms_nm),
+                fmt(m.peak_torque_ratio),
+                fmt(tr.margin, 2),
+                fmt(tr.error_index),
+                "",
+                "" if not tr.diverged else f"[red]{escape(tr.reason or '')}[/]",
+                end_section=i == len(s.trajectories) - 1,
+            )
     return t
 
 

@@ -25,8 +25,7 @@ import pinocchio as pin
 
 from .actuators import DiscreteBank, JointActuator, discretize
 from .arm import Arm
-from .control import Controller
-from .control import kernels
+from .control import Controller, kernels
 from .trajectories import Reference
 
 #: Default width of the Coulomb smoothing [rad/s]; widened per joint where needed.
@@ -67,8 +66,9 @@ class LoopState:
     pinned: np.ndarray
 
     def copy(self) -> LoopState:
-        return LoopState(*(a.copy() for a in (self.q, self.v, self.xa, self.hist, self.u_prev,
-                                               self.pinned)))
+        return LoopState(
+            *(a.copy() for a in (self.q, self.v, self.xa, self.hist, self.u_prev, self.pinned))
+        )
 
 
 @dataclass(frozen=True)
@@ -129,8 +129,12 @@ class ClosedLoop:
         self.n = n
         self.delay = np.array([a.delay_ticks for a in self.actuators], dtype=np.int64)
         self.D = int(self.delay.max()) if n else 0
-        self.effort = np.array([min(a.effort_nm, arm.effort[j]) if math.isfinite(a.effort_nm)
-                                else arm.effort[j] for j, a in enumerate(self.actuators)])
+        self.effort = np.array(
+            [
+                min(a.effort_nm, arm.effort[j]) if math.isfinite(a.effort_nm) else arm.effort[j]
+                for j, a in enumerate(self.actuators)
+            ]
+        )
         self.rate_step = np.array([a.rate_limit_nm_s * self.dt for a in self.actuators])
         self.has_rate = bool(np.any(np.isfinite(self.rate_step)))
         self.coulomb = np.array([a.coulomb_nm for a in self.actuators])
@@ -176,10 +180,14 @@ class ClosedLoop:
     def unpack(self, x: np.ndarray, like: LoopState) -> LoopState:
         n, nx, D = self.n, len(like.xa), self.D
         i = 0
-        q = x[i : i + n].copy(); i += n  # noqa: E702
-        v = x[i : i + n].copy(); i += n  # noqa: E702
-        xa = x[i : i + nx].copy(); i += nx  # noqa: E702
-        hist = x[i : i + D * n].reshape(D, n).copy(); i += D * n  # noqa: E702
+        q = x[i : i + n].copy()
+        i += n
+        v = x[i : i + n].copy()
+        i += n
+        xa = x[i : i + nx].copy()
+        i += nx
+        hist = x[i : i + D * n].reshape(D, n).copy()
+        i += D * n
         u_prev = x[i : i + n].copy() if self.has_rate else like.u_prev.copy()
         return LoopState(q, v, xa, hist, u_prev, like.pinned.copy())
 
@@ -190,19 +198,51 @@ class ClosedLoop:
         Returns (controller status, index of the joint pinned longest).
         """
         status = self.controller.command(k, st.q, vm, self._tau, self._tier, self._e6)
-        worst = kernels.actuate(self._tau, st.u_prev, self.rate_step, st.hist, self.delay,
-                                self.effort, st.pinned, self._ud)
+        worst = kernels.actuate(
+            self._tau,
+            st.u_prev,
+            self.rate_step,
+            st.hist,
+            self.delay,
+            self.effort,
+            st.pinned,
+            self._ud,
+        )
         b = self.bank
         if self.settings.substeps == 1:
-            kernels.drive(st.xa, self._ud, b.Ad, b.Bd, b.Cm, b.Dm, st.v, self.coulomb,
-                          self.v_eps, self.viscous, self._net, self._del)
+            kernels.drive(
+                st.xa,
+                self._ud,
+                b.Ad,
+                b.Bd,
+                b.Cm,
+                b.Dm,
+                st.v,
+                self.coulomb,
+                self.v_eps,
+                self.viscous,
+                self._net,
+                self._del,
+            )
             a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
             kernels.integrate(st.q, st.v, a, self.h)
         else:
             self._del_sum[:] = 0.0
             for _ in range(self.settings.substeps):
-                kernels.drive(st.xa, self._ud, b.Ad, b.Bd, b.Cm, b.Dm, st.v, self.coulomb,
-                              self.v_eps, self.viscous, self._net, self._del)
+                kernels.drive(
+                    st.xa,
+                    self._ud,
+                    b.Ad,
+                    b.Bd,
+                    b.Cm,
+                    b.Dm,
+                    st.v,
+                    self.coulomb,
+                    self.v_eps,
+                    self.viscous,
+                    self._net,
+                    self._del,
+                )
                 self._del_sum += self._del
                 a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
                 kernels.integrate(st.q, st.v, a, self.h)
@@ -252,17 +292,23 @@ class ClosedLoop:
                 reason = f"state became non-finite at t={ref.t[k]:.3f} s"
             elif self._e6[0] ** 2 + self._e6[1] ** 2 + self._e6[2] ** 2 > s.max_error_m**2:
                 err = math.sqrt(float(self._e6[:3] @ self._e6[:3]))
-                reason = (f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
-                          f"bound at t={ref.t[k]:.3f} s")
+                reason = (
+                    f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
+                    f"bound at t={ref.t[k]:.3f} s"
+                )
             elif st.pinned[worst] >= self.pinned_ticks:
-                reason = (f"torque of {names[worst]} pinned at its limit for "
-                          f"{self.settings.pinned_s:g} s (t={ref.t[k]:.3f} s)")
+                reason = (
+                    f"torque of {names[worst]} pinned at its limit for "
+                    f"{self.settings.pinned_s:g} s (t={ref.t[k]:.3f} s)"
+                )
             else:
                 out = np.flatnonzero((st.q < self.lower) | (st.q > self.upper))
                 if out.size:
                     j = int(out[0])
-                    reason = (f"{names[j]} left its position limits "
-                              f"({np.rad2deg(st.q[j]):.1f} deg) at t={ref.t[k]:.3f} s")
+                    reason = (
+                        f"{names[j]} left its position limits "
+                        f"({np.rad2deg(st.q[j]):.1f} deg) at t={ref.t[k]:.3f} s"
+                    )
             if reason is not None:
                 break
         steps = k + 1

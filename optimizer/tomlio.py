@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import builtins
 import difflib
 import math
 import sys
@@ -46,40 +47,51 @@ def suggestion(word: str, choices: Sequence[str]) -> str:
 class TableReader:
     """Typed access to one TOML table; ``done()`` rejects keys nobody asked for."""
 
-    def __init__(self, data: Any, path: object, prefix: str, error: type[InputError]) -> None:
+    def __init__(
+        self, data: Any, path: object, prefix: builtins.str, error: type[InputError]
+    ) -> None:
         if not isinstance(data, dict):
             raise error(path, prefix.rstrip("."), "must be a table")
         self.data = data
         self.path = path
         self.prefix = prefix
         self.error = error
-        self.seen: set[str] = set()
+        self.seen: set[builtins.str] = set()
 
-    def fail(self, key: str, reason: str) -> InputError:
+    def fail(self, key: builtins.str, reason: builtins.str) -> InputError:
         return self.error(self.path, f"{self.prefix}{key}", reason)
 
-    def has(self, key: str) -> bool:
+    def has(self, key: builtins.str) -> builtins.bool:
         return key in self.data
 
-    def raw(self, key: str, default: Any = _MISSING) -> Any:
+    def raw(self, key: builtins.str, default: Any = _MISSING) -> Any:
         self.seen.add(key)
         if key not in self.data:
             if default is _MISSING:
-                raise self.fail(key, "is required but missing")
+                close = difflib.get_close_matches(key, [str(k) for k in self.data], n=1, cutoff=0.6)
+                hint = f" (found '{close[0]}': misspelt?)" if close else ""
+                raise self.fail(key, f"is required but missing{hint}")
             return default
         return self.data[key]
 
-    def str(self, key: str, default: Any = _MISSING, choices: Sequence[str] | None = None) -> Any:
+    def str(
+        self,
+        key: builtins.str,
+        default: Any = _MISSING,
+        choices: Sequence[builtins.str] | None = None,
+    ) -> Any:
         v = self.raw(key, default)
         if v is default and default is not _MISSING:
             return v
         if not isinstance(v, str):
             raise self.fail(key, f"must be a string, got {v!r}")
         if choices is not None and v not in choices:
-            raise self.fail(key, f"'{v}' is not one of {', '.join(choices)}{suggestion(v, choices)}")
+            raise self.fail(
+                key, f"'{v}' is not one of {', '.join(choices)}{suggestion(v, choices)}"
+            )
         return v
 
-    def bool(self, key: str, default: Any = _MISSING) -> Any:
+    def bool(self, key: builtins.str, default: Any = _MISSING) -> Any:
         v = self.raw(key, default)
         if not isinstance(v, bool):
             raise self.fail(key, f"must be true or false, got {v!r}")
@@ -87,11 +99,11 @@ class TableReader:
 
     def float(
         self,
-        key: str,
+        key: builtins.str,
         default: Any = _MISSING,
-        min_value: float | None = None,
-        max_value: float | None = None,
-        strict_min: bool = False,
+        min_value: builtins.float | None = None,
+        max_value: builtins.float | None = None,
+        strict_min: builtins.bool = False,
     ) -> Any:
         if key not in self.data and default is not _MISSING:
             self.seen.add(key)
@@ -100,8 +112,13 @@ class TableReader:
         return self._check_number(key, v, min_value, max_value, strict_min)
 
     def _check_number(
-        self, key: str, v: Any, lo: float | None, hi: float | None, strict_lo: bool
-    ) -> float:
+        self,
+        key: builtins.str,
+        v: Any,
+        lo: builtins.float | None,
+        hi: builtins.float | None,
+        strict_lo: builtins.bool,
+    ) -> builtins.float:
         if isinstance(v, bool) or not isinstance(v, (int, float)):
             raise self.fail(key, f"must be a number, got {v!r}")
         x = float(v)
@@ -113,8 +130,13 @@ class TableReader:
             raise self.fail(key, f"must be <= {hi:g}, got {v!r}")
         return x
 
-    def int(self, key: str, default: Any = _MISSING, min_value: int | None = None,
-            max_value: int | None = None) -> Any:
+    def int(
+        self,
+        key: builtins.str,
+        default: Any = _MISSING,
+        min_value: builtins.int | None = None,
+        max_value: builtins.int | None = None,
+    ) -> Any:
         if key not in self.data and default is not _MISSING:
             self.seen.add(key)
             return default
@@ -127,8 +149,13 @@ class TableReader:
             raise self.fail(key, f"must be <= {max_value}, got {v}")
         return v
 
-    def floats(self, key: str, default: Any = _MISSING, length: int | None = None,
-               min_value: float | None = None) -> Any:
+    def floats(
+        self,
+        key: builtins.str,
+        default: Any = _MISSING,
+        length: builtins.int | None = None,
+        min_value: builtins.float | None = None,
+    ) -> Any:
         v = self.raw(key, default)
         if v is default and default is not _MISSING:
             return v
@@ -138,7 +165,7 @@ class TableReader:
             raise self.fail(key, f"must have {length} numbers, got {len(v)}")
         return tuple(self._check_number(key, x, min_value, None, False) for x in v)
 
-    def strings(self, key: str, default: Any = _MISSING) -> Any:
+    def strings(self, key: builtins.str, default: Any = _MISSING) -> Any:
         v = self.raw(key, default)
         if v is default and default is not _MISSING:
             return v
@@ -146,11 +173,11 @@ class TableReader:
             raise self.fail(key, f"must be a list of strings, got {v!r}")
         return tuple(v)
 
-    def table(self, key: str, required: bool = False) -> TableReader:
+    def table(self, key: builtins.str, required: builtins.bool = False) -> TableReader:
         v = self.raw(key, _MISSING if required else {})
         return TableReader(v, self.path, f"{self.prefix}{key}.", self.error)
 
-    def table_list(self, key: str) -> list[TableReader]:
+    def table_list(self, key: builtins.str) -> list[TableReader]:
         v = self.raw(key, [])
         if isinstance(v, dict):
             v = [v]
@@ -168,5 +195,6 @@ class TableReader:
                 known = sorted(self.seen)
                 raise self.fail(
                     key,
-                    f"unknown key{suggestion(key, known)}; known here: {', '.join(known) or 'none'}",
+                    f"unknown key{suggestion(key, known)}; "
+                    f"known here: {', '.join(known) or 'none'}",
                 )

@@ -9,9 +9,8 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from problems import DEMO, PLANAR  # noqa: E402
-
-from optimizer.problem import Problem, load_problem  # noqa: E402
+from optimizer.problem import Problem, load_problem
+from problems import DEMO, PLANAR
 
 
 @pytest.fixture(scope="session")

@@ -20,8 +20,10 @@ def two_link_urdf(rods: bool = False) -> str:
     lc, I = (0.5, 1.0 / 12.0) if rods else (1.0, 1e-12)
 
     def link(name: str) -> str:
-        return (f'<link name="{name}"><inertial><origin xyz="{lc} 0 0"/><mass value="1"/>'
-                f'<inertia ixx="1e-12" iyy="{I}" izz="{I}" ixy="0" ixz="0" iyz="0"/></inertial></link>')
+        return (
+            f'<link name="{name}"><inertial><origin xyz="{lc} 0 0"/><mass value="1"/>'
+            f'<inertia ixx="1e-12" iyy="{I}" izz="{I}" ixy="0" ixz="0" iyz="0"/></inertial></link>'
+        )
 
     return f"""<robot name="two_link">
 <link name="base"/>{link("l1")}{link("l2")}<link name="tip"/>
@@ -76,6 +78,20 @@ name = "hold"
 kind = "hold"
 duration_s = 0.01
 """
+    path = folder / "problem.toml"
+    path.write_text(text)
+    return path
+
+
+def planar_variant(folder: Path, *edits: tuple[str, str]) -> Path:
+    """A copy of the planar3 problem in ``folder`` with text replacements (old, new) applied."""
+    src = PLANAR.parent
+    (folder / "arm.urdf").write_text((src / "arm.urdf").read_text())
+    text = PLANAR.read_text()
+    for old, new in edits:
+        if old not in text:
+            raise KeyError(f"{old!r} is not in the planar problem file")
+        text = text.replace(old, new, 1)
     path = folder / "problem.toml"
     path.write_text(text)
     return path

@@ -55,15 +55,16 @@ def test_first_order_corner_is_minus_3db_and_minus_45deg() -> None:
     """At ω = ωc the first-order lag is −3.0103 dB and −45.000° (REFERENCES §5, scipy.signal)."""
     m = FirstOrder(10.0)
     A, B, C = m.continuous()
-    w, H = sg.freqresp(sg.StateSpace(A, B, C, 0), w=[2 * math.pi * 10.0])
+    _, H = sg.freqresp(sg.StateSpace(A, B, C, 0), w=[2 * math.pi * 10.0])
     assert 20 * np.log10(abs(H[0])) == pytest.approx(-3.0103, abs=1e-4)
     assert math.degrees(np.angle(H[0])) == pytest.approx(-45.0, abs=1e-6)
     assert m.bandwidth_hz() == 10.0
 
 
-@pytest.mark.parametrize(("zeta", "overshoot", "bw"), [(0.5, 16.303353, 1.272020),
-                                                       (0.7, 4.598791, 1.010049),
-                                                       (1 / math.sqrt(2), 4.321392, 1.0)])
+@pytest.mark.parametrize(
+    ("zeta", "overshoot", "bw"),
+    [(0.5, 16.303353, 1.272020), (0.7, 4.598791, 1.010049), (1 / math.sqrt(2), 4.321392, 1.0)],
+)
 def test_second_order_overshoot_and_bandwidth(zeta, overshoot, bw) -> None:
     """Step overshoot exp(−ζπ/√(1−ζ²)) and the −3 dB bandwidth formula, ωn = 1 rad/s.
 
@@ -73,7 +74,9 @@ def test_second_order_overshoot_and_bandwidth(zeta, overshoot, bw) -> None:
     """
     m = SecondOrder(1.0 / (2 * math.pi), zeta)
     assert m.bandwidth_hz() * 2 * math.pi == pytest.approx(bw, abs=1e-6)
-    assert 100 * math.exp(-zeta * math.pi / math.sqrt(1 - zeta**2)) == pytest.approx(overshoot, abs=1e-5)
+    assert 100 * math.exp(-zeta * math.pi / math.sqrt(1 - zeta**2)) == pytest.approx(
+        overshoot, abs=1e-5
+    )
     bank = discretize(_bank(m), 1e-3)
     x = np.zeros(2)
     peak = 0.0
@@ -121,7 +124,9 @@ def test_saturation_rate_limit_and_pinned_counter() -> None:
     effort = np.array([2.0])
     seen = []
     for _ in range(8):
-        kernels.actuate(np.array([10.0]), u_prev, rate, hist, np.zeros(1, np.int64), effort, pinned, ud)
+        kernels.actuate(
+            np.array([10.0]), u_prev, rate, hist, np.zeros(1, np.int64), effort, pinned, ud
+        )
         seen.append(float(ud[0]))
     assert seen == [0.5, 1.0, 1.5, 2.0, 2.0, 2.0, 2.0, 2.0]
     assert pinned[0] == 5

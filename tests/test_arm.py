@@ -7,19 +7,29 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
-from problems import pendulum_urdf, two_link_urdf
 
 from optimizer.arm import Arm, PlantDeviation
 from optimizer.control import kernels
+from problems import pendulum_urdf, two_link_urdf
 
 # Golden values: planar elbow manipulator (Spong, Hutchinson & Vidyasagar, "Robot Modeling
 # and Control", planar elbow manipulator example — section number from memory), recomputed
 # with numpy in shared/REFERENCES.md §1 [checked]; g = 9.81.
 GOLDEN_POINT = [
-    ((0.3, -1.1), (1.2, 0.7), [[3.9071922429, 1.4535961214], [1.4535961214, 1.0]],
-     [1.9339199713, -1.2833385985], [25.5783947353, 6.8346928187]),
-    ((math.pi / 6, math.pi / 3), (0.5, -0.3), [[4.0, 1.5], [1.5, 1.0]],
-     [0.1818653348, 0.2165063509], [16.991418422, 0.0]),
+    (
+        (0.3, -1.1),
+        (1.2, 0.7),
+        [[3.9071922429, 1.4535961214], [1.4535961214, 1.0]],
+        [1.9339199713, -1.2833385985],
+        [25.5783947353, 6.8346928187],
+    ),
+    (
+        (math.pi / 6, math.pi / 3),
+        (0.5, -0.3),
+        [[4.0, 1.5], [1.5, 1.0]],
+        [0.1818653348, 0.2165063509],
+        [16.991418422, 0.0],
+    ),
 ]
 
 
@@ -40,17 +50,22 @@ def test_two_link_home_and_rods_match_closed_form() -> None:
     model = pin.buildModelFromXML(two_link_urdf())
     data = model.createData()
     np.testing.assert_allclose(pin.crba(model, data, np.zeros(2)), [[5, 2], [2, 1]], atol=1e-8)
-    np.testing.assert_allclose(pin.computeGeneralizedGravity(model, data, np.zeros(2)),
-                               [29.43, 9.81], atol=1e-8)
+    np.testing.assert_allclose(
+        pin.computeGeneralizedGravity(model, data, np.zeros(2)), [29.43, 9.81], atol=1e-8
+    )
     rods = pin.buildModelFromXML(two_link_urdf(rods=True))
     d2 = rods.createData()
     q, qd = np.array([math.pi / 6, math.pi / 3]), np.array([0.5, -0.3])
-    np.testing.assert_allclose(pin.crba(rods, d2, q),
-                               [[2.1666666667, 0.5833333333], [0.5833333333, 0.3333333333]], atol=1e-8)
+    np.testing.assert_allclose(
+        pin.crba(rods, d2, q),
+        [[2.1666666667, 0.5833333333], [0.5833333333, 0.3333333333]],
+        atol=1e-8,
+    )
     g = pin.computeGeneralizedGravity(rods, d2, q)
     np.testing.assert_allclose(g, [12.743563817, 0.0], atol=1e-8)
-    np.testing.assert_allclose(pin.nonLinearEffects(rods, d2, q, qd) - g,
-                               [0.0909326674, 0.1082531755], atol=1e-8)
+    np.testing.assert_allclose(
+        pin.nonLinearEffects(rods, d2, q, qd) - g, [0.0909326674, 0.1082531755], atol=1e-8
+    )
 
 
 def _pendulum_energy_drift(method: str, seconds: float) -> float:
@@ -58,9 +73,11 @@ def _pendulum_energy_drift(method: str, seconds: float) -> float:
     data = model.createData()
     q, v, h = np.array([1.0]), np.zeros(1), 1e-3
     zero = np.zeros(1)
+
     # energy with q from the horizontal: height = sin q (axis -y lifts the bob)
     def energy(q: np.ndarray, v: np.ndarray) -> float:
         return 0.5 * v[0] ** 2 + 9.81 * math.sin(q[0])
+
     e0 = energy(q, v)
     scale = 9.81 * (1.0 - math.cos(1.0))
     worst = 0.0

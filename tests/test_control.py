@@ -7,11 +7,10 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
-from problems import two_link_urdf
 
 from optimizer.arm import LWA
-from optimizer.control import dls, null_projector_t, osc_torque, tier_torque
-from optimizer.control import kernels
+from optimizer.control import dls, kernels, null_projector_t, osc_torque, tier_torque
+from problems import two_link_urdf
 
 
 def _random_spd(rng: np.random.Generator, n: int) -> np.ndarray:
@@ -107,8 +106,12 @@ def test_log3_matches_pinocchio_including_near_pi() -> None:
     rng = np.random.default_rng(3)
     out = np.empty(3)
     axes = rng.standard_normal((40, 3))
-    angles = np.concatenate([rng.uniform(0, math.pi, 30), [0.0, 1e-9, 1e-7, math.pi - 1e-5,
-                                                           math.pi - 1e-3, 3.0, 2.5, 1.0, 0.5, 1e-4]])
+    angles = np.concatenate(
+        [
+            rng.uniform(0, math.pi, 30),
+            [0.0, 1e-9, 1e-7, math.pi - 1e-5, math.pi - 1e-3, 3.0, 2.5, 1.0, 0.5, 1e-4],
+        ]
+    )
     for ax, th in zip(axes, angles):
         w = ax / np.linalg.norm(ax) * th
         R = pin.exp3(w)
@@ -124,8 +127,10 @@ def test_two_link_task_inertia_golden() -> None:
     model = pin.buildModelFromXML(two_link_urdf())
     data = model.createData()
     fid = model.getFrameId("tip")
-    cases = [((0.0, math.pi / 2), [[1.0, 0.0], [0.0, 2.0]]),
-             ((0.3, -1.1), [[1.6111424582, -0.6292558388], [-0.6292558388, 1.6479060739]])]
+    cases = [
+        ((0.0, math.pi / 2), [[1.0, 0.0], [0.0, 2.0]]),
+        ((0.3, -1.1), [[1.6111424582, -0.6292558388], [-0.6292558388, 1.6479060739]]),
+    ]
     for q, lam in cases:
         q = np.array(q)
         J = pin.computeFrameJacobian(model, data, q, fid, LWA)[[0, 2]]

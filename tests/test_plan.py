@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import pytest
-from problems import DEMO_PLANS
 
 from optimizer.exceptions import PlanError
 from optimizer.plan import Plan, Tier, load_plan, parse_plan
+from problems import DEMO_PLANS
 
 NAMES = ("a", "b", "c", "d")
 
@@ -21,18 +21,50 @@ def test_demo_plan_round_trips(demo) -> None:
     assert plan.compact().startswith("[all] t1500 r1500 z0.8 | [upper_roll,elbow,")
 
 
-@pytest.mark.parametrize(("data", "key", "message"), [
-    ({"tier": [{"joints": ["a", "zz"], "kp_t": 1, "kp_r": 1}]}, "tier[0].joints", "unknown joint 'zz'"),
-    ({"tier": [{"joints": ["a", "a"], "kp_t": 1, "kp_r": 1}]}, "tier[0].joints", "appears twice"),
-    ({"tier": [{"joints": "all", "kp_t": -1, "kp_r": 1}]}, "tier[0].kp_t", "must be >= 0"),
-    ({"tier": [{"joints": "all", "kp_t": 1, "kp_r": 1, "gain": 3}]}, "tier[0].gain", "unknown key"),
-    ({"tier": []}, "tier", "at least one"),
-    ({"nested": True, "tier": [{"joints": ["a", "b"], "kp_t": 1, "kp_r": 1},
-                               {"joints": ["c"], "kp_t": 1, "kp_r": 1}]}, "tier", "declared nested"),
-    ({"tier": [{"joints": "all", "kp_t": 1, "kp_r": 1},
-               {"joints": ["c"], "kp_t": 0, "kp_r": 0}]}, "tier", "would do nothing"),
-    ({"tier": [{"joints": 3, "kp_t": 1, "kp_r": 1}]}, "tier[0].joints", 'must be "all"'),
-])
+@pytest.mark.parametrize(
+    ("data", "key", "message"),
+    [
+        (
+            {"tier": [{"joints": ["a", "zz"], "kp_t": 1, "kp_r": 1}]},
+            "tier[0].joints",
+            "unknown joint 'zz'",
+        ),
+        (
+            {"tier": [{"joints": ["a", "a"], "kp_t": 1, "kp_r": 1}]},
+            "tier[0].joints",
+            "appears twice",
+        ),
+        ({"tier": [{"joints": "all", "kp_t": -1, "kp_r": 1}]}, "tier[0].kp_t", "must be >= 0"),
+        (
+            {"tier": [{"joints": "all", "kp_t": 1, "kp_r": 1, "gain": 3}]},
+            "tier[0].gain",
+            "unknown key",
+        ),
+        ({"tier": []}, "tier", "at least one"),
+        (
+            {
+                "nested": True,
+                "tier": [
+                    {"joints": ["a", "b"], "kp_t": 1, "kp_r": 1},
+                    {"joints": ["c"], "kp_t": 1, "kp_r": 1},
+                ],
+            },
+            "tier",
+            "declared nested",
+        ),
+        (
+            {
+                "tier": [
+                    {"joints": "all", "kp_t": 1, "kp_r": 1},
+                    {"joints": ["c"], "kp_t": 0, "kp_r": 0},
+                ]
+            },
+            "tier",
+            "would do nothing",
+        ),
+        ({"tier": [{"joints": 3, "kp_t": 1, "kp_r": 1}]}, "tier[0].joints", 'must be "all"'),
+    ],
+)
 def test_plan_errors_name_the_key(data, key, message) -> None:
     """Each bad plan raises PlanError with the file, the key and the reason."""
     with pytest.raises(PlanError, match=message) as info:

@@ -59,8 +59,10 @@ def test_circle_keeps_its_radius_and_speed() -> None:
 def test_csv_poses_interpolate_and_hold(tmp_path) -> None:
     """CSV rows are met exactly; the pose holds after the last row; derivatives agree."""
     f = tmp_path / "poses.csv"
-    f.write_text("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n"
-                 "0.5,0.02,0,0.01,0,0.1,0\n1.0,0.03,0.01,0.0,0.05,0.1,0\n")
+    f.write_text(
+        "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n"
+        "0.5,0.02,0,0.01,0,0.1,0\n1.0,0.03,0.01,0.0,0.05,0.1,0\n"
+    )
     kind = CsvPoses.from_file(f)
     ref = sample("csv", kind, 1.5, 10000.0, P0, R0)
     np.testing.assert_allclose(ref.p[5000], P0 + [0.02, 0, 0.01], atol=1e-12)
@@ -72,12 +74,21 @@ def test_csv_poses_interpolate_and_hold(tmp_path) -> None:
     np.testing.assert_allclose(ref.twist[1:9999, 3:], w_fd[:9998], atol=1e-4)
 
 
-@pytest.mark.parametrize(("text", "message"), [
-    ("t,x\n0,0\n", "the header must be"),
-    ("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n", "at least 2 poses"),
-    ("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,a,0,0,0,0,0\n", "line 3: not a number"),
-    ("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,nan,0,0,0,0,0\n", "line 3: needs 7 finite"),
-])
+@pytest.mark.parametrize(
+    ("text", "message"),
+    [
+        ("t,x\n0,0\n", "the header must be"),
+        ("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n", "at least 2 poses"),
+        (
+            "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,a,0,0,0,0,0\n",
+            "line 3: not a number",
+        ),
+        (
+            "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,nan,0,0,0,0,0\n",
+            "line 3: needs 7 finite",
+        ),
+    ],
+)
 def test_bad_csv_is_rejected_with_the_line(tmp_path, text, message) -> None:
     """A bad pose CSV raises ValueError naming what and where."""
     f = tmp_path / "bad.csv"

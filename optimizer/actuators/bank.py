@@ -44,7 +44,9 @@ class DiscreteBank:
         return np.linalg.solve(np.eye(nx) - self.Ad, self.Bd @ u)
 
 
-def continuous_bank(actuators: Sequence[JointActuator]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def continuous_bank(
+    actuators: Sequence[JointActuator],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Block-diagonal continuous ``(A, B, C)`` of every joint's model."""
     blocks = [a.model.continuous() for a in actuators]
     nx = sum(b[0].shape[0] for b in blocks)

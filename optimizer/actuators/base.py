@@ -64,9 +64,13 @@ class JointActuator:
 
     def __post_init__(self) -> None:
         if self.delay_ticks < 0:
-            raise ValueError(f"delay of joint {self.joint} must be >= 0 ticks, got {self.delay_ticks}")
+            raise ValueError(
+                f"delay of joint {self.joint} must be >= 0 ticks, got {self.delay_ticks}"
+            )
         if not self.effort_nm > 0.0:
-            raise ValueError(f"effort limit of joint {self.joint} must be > 0, got {self.effort_nm}")
+            raise ValueError(
+                f"effort limit of joint {self.joint} must be > 0, got {self.effort_nm}"
+            )
         if not self.rate_limit_nm_s > 0.0:
             raise ValueError(
                 f"rate limit of joint {self.joint} must be > 0, got {self.rate_limit_nm_s}"

@@ -34,7 +34,9 @@ class SecondOrder:
     def bandwidth_hz(self) -> float:
         """−3 dB frequency, ωBW = ωn √(1 − 2ζ² + √(4ζ⁴ − 4ζ² + 2))."""
         z2 = self.damping_ratio**2
-        return self.natural_hz * math.sqrt(1.0 - 2.0 * z2 + math.sqrt(4.0 * z2 * z2 - 4.0 * z2 + 2.0))
+        return self.natural_hz * math.sqrt(
+            1.0 - 2.0 * z2 + math.sqrt(4.0 * z2 * z2 - 4.0 * z2 + 2.0)
+        )
 
     def fastest_hz(self) -> float:
         return max(self.natural_hz, self.bandwidth_hz())

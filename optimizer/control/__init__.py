@@ -1,12 +1,15 @@
-"""Controllers: the tiered task-space law (OSC is its one-tier case) and the joint-space baseline."""
+"""Controllers: the tiered task-space law (OSC is its one-tier case), the joint-space baseline."""
 
-from .base import AXES, ControlSettings, Controller
+from .base import AXES, Controller, ControlSettings
 from .joint_space import ClikSolution, JointSpaceController, clik, dls
 from .tiered import TieredController, null_projector_t, osc_torque, tier_torque
 
 #: Controller families by the ``kind`` used in results files.
-CONTROLLER_KINDS = {"plan": TieredController, "osc": TieredController,
-                    "joint_space": JointSpaceController}
+CONTROLLER_KINDS = {
+    "plan": TieredController,
+    "osc": TieredController,
+    "joint_space": JointSpaceController,
+}
 
 __all__ = [
     "AXES",

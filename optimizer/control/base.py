@@ -49,7 +49,12 @@ class Controller(Protocol):
         ...
 
     def command(
-        self, k: int, q: np.ndarray, vm: np.ndarray, tau: np.ndarray, tier_tau: np.ndarray,
+        self,
+        k: int,
+        q: np.ndarray,
+        vm: np.ndarray,
+        tau: np.ndarray,
+        tier_tau: np.ndarray,
         e6: np.ndarray,
     ) -> int:
         """Write the clipped torque command for tick ``k`` into ``tau``.

@@ -43,7 +43,11 @@ def dls(J: np.ndarray, lam: float) -> np.ndarray:
 
 
 def clik(
-    arm: Arm, ref: Reference, axes: tuple[int, ...], gain: float = 200.0, lam: float = 0.01,
+    arm: Arm,
+    ref: Reference,
+    axes: tuple[int, ...],
+    gain: float = 200.0,
+    lam: float = 0.01,
     posture_gain: float = 2.0,
 ) -> ClikSolution:
     """Integrate CLIK along ``ref`` from the home pose, one step per tick.
@@ -90,8 +94,14 @@ class JointSpaceController:
     n_tiers = 1
 
     def __init__(
-        self, arm: Arm, settings: ControlSettings, kp: np.ndarray, zeta: float,
-        clik_gain: float = 200.0, clik_damping: float = 0.01, posture_gain: float = 2.0,
+        self,
+        arm: Arm,
+        settings: ControlSettings,
+        kp: np.ndarray,
+        zeta: float,
+        clik_gain: float = 200.0,
+        clik_damping: float = 0.01,
+        posture_gain: float = 2.0,
         label: str = "joint-space CLIK + PD",
     ) -> None:
         self.arm = arm
@@ -115,14 +125,23 @@ class JointSpaceController:
         key = ref.name
         if key not in self._cache:
             self._cache[key] = clik(
-                self.arm, ref, self.settings.task_axes, self.clik_gain, self.clik_damping,
+                self.arm,
+                ref,
+                self.settings.task_axes,
+                self.clik_gain,
+                self.clik_damping,
                 self.posture_gain,
             )
         self.sol = self._cache[key]
         self.ref = ref
 
     def command(
-        self, k: int, q: np.ndarray, vm: np.ndarray, tau: np.ndarray, tier_tau: np.ndarray,
+        self,
+        k: int,
+        q: np.ndarray,
+        vm: np.ndarray,
+        tau: np.ndarray,
+        tier_tau: np.ndarray,
         e6: np.ndarray,
     ) -> int:
         model, data, fid = self.arm.model, self.data, self.arm.tip_id

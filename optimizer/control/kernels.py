@@ -91,8 +91,13 @@ def cho_solve_vec(L: np.ndarray, b: np.ndarray) -> None:
 
 @njit(cache=True)
 def tier_solve(
-    Minv: np.ndarray, J: np.ndarray, rows: np.ndarray, joints: np.ndarray, a: np.ndarray,
-    lam: float, tau: np.ndarray,
+    Minv: np.ndarray,
+    J: np.ndarray,
+    rows: np.ndarray,
+    joints: np.ndarray,
+    a: np.ndarray,
+    lam: float,
+    tau: np.ndarray,
 ) -> int:
     """Add to ``tau`` this tier's τ = Sᵀ W⁻¹ Bᵀ (B W⁻¹ Bᵀ + λI)⁻¹ a (see tiered.py).
 
@@ -153,13 +158,34 @@ def tier_solve(
 
 @njit(cache=True)
 def tiered_command(
-    p: np.ndarray, R: np.ndarray, J6: np.ndarray, dJv6: np.ndarray, h: np.ndarray,
-    Minv: np.ndarray, q: np.ndarray, vm: np.ndarray,
-    pd: np.ndarray, Rd: np.ndarray, twd: np.ndarray, accd: np.ndarray,
-    axes: np.ndarray, tier_joints: np.ndarray, tier_nj: np.ndarray, tier_rows: np.ndarray,
-    tier_nr: np.ndarray, tier_kp: np.ndarray, tier_kd: np.ndarray, tier_lam: np.ndarray,
-    kn: np.ndarray, dn: np.ndarray, qhome: np.ndarray, null_eps: float, effort: np.ndarray,
-    tau: np.ndarray, tier_tau: np.ndarray, e6: np.ndarray,
+    p: np.ndarray,
+    R: np.ndarray,
+    J6: np.ndarray,
+    dJv6: np.ndarray,
+    h: np.ndarray,
+    Minv: np.ndarray,
+    q: np.ndarray,
+    vm: np.ndarray,
+    pd: np.ndarray,
+    Rd: np.ndarray,
+    twd: np.ndarray,
+    accd: np.ndarray,
+    axes: np.ndarray,
+    tier_joints: np.ndarray,
+    tier_nj: np.ndarray,
+    tier_rows: np.ndarray,
+    tier_nr: np.ndarray,
+    tier_kp: np.ndarray,
+    tier_kd: np.ndarray,
+    tier_lam: np.ndarray,
+    kn: np.ndarray,
+    dn: np.ndarray,
+    qhome: np.ndarray,
+    null_eps: float,
+    effort: np.ndarray,
+    tau: np.ndarray,
+    tier_tau: np.ndarray,
+    e6: np.ndarray,
 ) -> int:
     """One tick of the tiered law; writes the clipped command into ``tau``.
 
@@ -234,8 +260,14 @@ def tiered_command(
 
 @njit(cache=True)
 def actuate(
-    tau_cmd: np.ndarray, u_prev: np.ndarray, rate_step: np.ndarray, hist: np.ndarray,
-    delay: np.ndarray, effort: np.ndarray, pinned: np.ndarray, u_d: np.ndarray,
+    tau_cmd: np.ndarray,
+    u_prev: np.ndarray,
+    rate_step: np.ndarray,
+    hist: np.ndarray,
+    delay: np.ndarray,
+    effort: np.ndarray,
+    pinned: np.ndarray,
+    u_d: np.ndarray,
 ) -> int:
     """Saturate, rate-limit and delay the command; returns the joint pinned longest.
 
@@ -271,9 +303,18 @@ def actuate(
 
 @njit(cache=True)
 def drive(
-    xa: np.ndarray, u_d: np.ndarray, Ad: np.ndarray, Bd: np.ndarray, Cm: np.ndarray,
-    Dm: np.ndarray, v: np.ndarray, coulomb: np.ndarray, v_eps: np.ndarray, viscous: np.ndarray,
-    tau_net: np.ndarray, tau_del: np.ndarray,
+    xa: np.ndarray,
+    u_d: np.ndarray,
+    Ad: np.ndarray,
+    Bd: np.ndarray,
+    Cm: np.ndarray,
+    Dm: np.ndarray,
+    v: np.ndarray,
+    coulomb: np.ndarray,
+    v_eps: np.ndarray,
+    viscous: np.ndarray,
+    tau_net: np.ndarray,
+    tau_del: np.ndarray,
 ) -> None:
     """Mean delivered torque over the step, minus joint friction; advances ``xa``."""
     y = Cm @ xa + Dm @ u_d

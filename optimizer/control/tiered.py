@@ -110,7 +110,12 @@ class TieredController:
         self._acc = ref.acc
 
     def command(
-        self, k: int, q: np.ndarray, vm: np.ndarray, tau: np.ndarray, tier_tau: np.ndarray,
+        self,
+        k: int,
+        q: np.ndarray,
+        vm: np.ndarray,
+        tau: np.ndarray,
+        tier_tau: np.ndarray,
         e6: np.ndarray,
     ) -> int:
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
@@ -126,11 +131,34 @@ class TieredController:
             Minv = np.atleast_2d(Minv)
         return int(
             kernels.tiered_command(
-                oMf.translation, oMf.rotation, J6, dJv, h, Minv, q, vm,
-                self._p[k], self._R[k], self._tw[k], self._acc[k],
-                self.axes, self.tier_joints, self.tier_nj, self.tier_rows, self.tier_nr,
-                self.tier_kp, self.tier_kd, self.tier_lam, self.kn, self.dn, self.qhome,
-                self.settings.null_eps, self.effort, tau, tier_tau, e6,
+                oMf.translation,
+                oMf.rotation,
+                J6,
+                dJv,
+                h,
+                Minv,
+                q,
+                vm,
+                self._p[k],
+                self._R[k],
+                self._tw[k],
+                self._acc[k],
+                self.axes,
+                self.tier_joints,
+                self.tier_nj,
+                self.tier_rows,
+                self.tier_nr,
+                self.tier_kp,
+                self.tier_kd,
+                self.tier_lam,
+                self.kn,
+                self.dn,
+                self.qhome,
+                self.settings.null_eps,
+                self.effort,
+                tau,
+                tier_tau,
+                e6,
             )
         )
 

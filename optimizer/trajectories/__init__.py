@@ -20,7 +20,12 @@ ROTATION_KINDS = ("rotate",)
 
 
 def sample(
-    name: str, kind: TrajectoryKind, duration_s: float, rate_hz: float, p0: np.ndarray, R0: np.ndarray
+    name: str,
+    kind: TrajectoryKind,
+    duration_s: float,
+    rate_hz: float,
+    p0: np.ndarray,
+    R0: np.ndarray,
 ) -> Reference:
     """Sample ``kind`` from the start pose (p0, R0) at every tick of ``duration_s``."""
     n = int(round(duration_s * rate_hz)) + 1
