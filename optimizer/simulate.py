@@ -148,9 +148,6 @@ class ClosedLoop:
         self.upper = np.array(arm.upper)
         self.pinned_ticks = max(1, int(round(self.settings.pinned_s / self.dt)))
         # scratch
-        self._tau = np.zeros(n)
-        self._tier = np.zeros((controller.n_tiers, n))
-        self._e6 = np.zeros(6)
         self._ud = np.zeros(n)
         self._net = np.zeros(n)
         self._del = np.zeros(n)
@@ -197,9 +194,10 @@ class ClosedLoop:
 
         Returns (controller status, index of the joint pinned longest).
         """
-        status = self.controller.command(k, st.q, vm, self._tau, self._tier, self._e6)
+        ctrl = self.controller
+        status = ctrl.command(k, st.q, vm)
         worst = kernels.actuate(
-            self._tau,
+            ctrl.tau,
             st.u_prev,
             self.rate_step,
             st.hist,
@@ -256,6 +254,25 @@ class ClosedLoop:
         return self.pack(st)
 
     # -- rollout ---------------------------------------------------------------
+    def _explain(self, code: int, worst: int, t: float, st: LoopState) -> str:
+        s, names = self.settings, self.arm.joint_names
+        if code == 1:
+            return f"singular solve in the controller at t={t:.3f} s"
+        if code == 2:
+            return f"state became non-finite at t={t:.3f} s"
+        if code == 3:
+            e = self.controller.e6
+            err = math.sqrt(float(e[:3] @ e[:3]))
+            return (
+                f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
+                f"bound at t={t:.3f} s"
+            )
+        if code == 4:
+            j = int(np.argmax(st.pinned))
+            return f"torque of {names[j]} pinned at its limit for {s.pinned_s:g} s (t={t:.3f} s)"
+        j = code - 10
+        return f"{names[j]} left its position limits ({np.rad2deg(st.q[j]):.1f} deg) at t={t:.3f} s"
+
     def rollout(self, ref: Reference, seed: int | None = None) -> Rollout:
         """Run the loop over ``ref``; stop early on divergence and say why."""
         s = self.settings
@@ -273,43 +290,38 @@ class ClosedLoop:
         snaps: list[tuple[int, LoopState]] = []
         st = self.initial_state()
         reason: str | None = None
-        names = self.arm.joint_names
         k = 0
         vm = np.empty(n)
+        max_err2 = s.max_error_m**2
+        code = 0
         for k in range(N):
             if k in snap_at:
                 snaps.append((k, st.copy()))
             Q[k] = st.q
             np.add(st.v, noise[k], out=vm)
             status, worst = self.step(k, st, vm)
-            E[k] = self._e6
-            TC[k] = st.u_prev
-            TD[k] = self._del
-            TT[k] = self._tier
-            if status != 0:
-                reason = f"singular solve in the controller at t={ref.t[k]:.3f} s"
-            elif not (np.all(np.isfinite(st.q)) and np.all(np.isfinite(st.v))):
-                reason = f"state became non-finite at t={ref.t[k]:.3f} s"
-            elif self._e6[0] ** 2 + self._e6[1] ** 2 + self._e6[2] ** 2 > s.max_error_m**2:
-                err = math.sqrt(float(self._e6[:3] @ self._e6[:3]))
-                reason = (
-                    f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
-                    f"bound at t={ref.t[k]:.3f} s"
-                )
-            elif st.pinned[worst] >= self.pinned_ticks:
-                reason = (
-                    f"torque of {names[worst]} pinned at its limit for "
-                    f"{self.settings.pinned_s:g} s (t={ref.t[k]:.3f} s)"
-                )
-            else:
-                out = np.flatnonzero((st.q < self.lower) | (st.q > self.upper))
-                if out.size:
-                    j = int(out[0])
-                    reason = (
-                        f"{names[j]} left its position limits "
-                        f"({np.rad2deg(st.q[j]):.1f} deg) at t={ref.t[k]:.3f} s"
-                    )
-            if reason is not None:
+            code = kernels.record(
+                k,
+                st.q,
+                st.v,
+                self.controller.e6,
+                st.u_prev,
+                self._del,
+                self.controller.tier_tau,
+                Q,
+                E,
+                TC,
+                TD,
+                TT,
+                self.lower,
+                self.upper,
+                max_err2,
+                st.pinned,
+                self.pinned_ticks,
+                status,
+            )
+            if code:
+                reason = self._explain(code, worst, ref.t[k], st)
                 break
         steps = k + 1
         P = ref.p[:steps] - E[:steps, :3]

@@ -87,7 +87,7 @@ def test_kernel_matches_numpy_reference(mj, joints, lam) -> None:
     a = np.array([0.2, -0.4, 1.0, 0.5, 0.1, -0.3])
     ref = tier_torque(Minv, J, np.array(joints), a, lam)
     out = np.zeros(7)
-    status = kernels.tier_solve(Minv, J, np.arange(6), np.array(joints), a, lam, out)
+    status = kernels.tier_solve(Minv, J, np.arange(6), np.array(joints), a, lam, out, np.zeros(400))
     assert status == kernels.OK
     np.testing.assert_allclose(out, ref, rtol=1e-8, atol=1e-10)
 
@@ -97,7 +97,9 @@ def test_kernel_reports_singular_tier() -> None:
     Minv = np.eye(3)
     J = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
     out = np.zeros(3)
-    status = kernels.tier_solve(Minv, J, np.arange(2), np.array([2]), np.ones(2), 0.0, out)
+    status = kernels.tier_solve(
+        Minv, J, np.arange(2), np.array([2]), np.ones(2), 0.0, out, np.zeros(100)
+    )
     assert status == kernels.SINGULAR
 
 
@@ -167,9 +169,10 @@ def test_tiered_command_single_tier_equals_osc_plus_null_and_h(demo) -> None:
     q = np.array(prob.arm.home) + 0.05 * rng.standard_normal(7)
     v = 0.2 * rng.standard_normal(7)
     k = 700
-    tau, tier, e6 = np.zeros(7), np.zeros((1, 7)), np.zeros(6)
     ctrl.effort = np.full(7, 1e9)  # no clipping in this check
-    assert ctrl.command(k, q, v, tau, tier, e6) == 0
+    ctrl.pack()
+    assert ctrl.command(k, q, v) == 0
+    tau, e6 = ctrl.tau, ctrl.e6
     model, data = prob.arm.model, prob.arm.model.createData()
     fid = prob.arm.tip_id
     pin.forwardKinematics(model, data, q, v, np.zeros(7))

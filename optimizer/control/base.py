@@ -43,24 +43,21 @@ class Controller(Protocol):
     """``plan``, ``osc`` or ``joint_space``."""
     n_tiers: int
     """Tier count (1 for baselines)."""
+    tau: np.ndarray
+    """After ``command``: the clipped torque command (n,) [N·m]."""
+    e6: np.ndarray
+    """After ``command``: the tip pose error (6,) [m; rad], world axes."""
+    tier_tau: np.ndarray
+    """After ``command``: each tier's torque share before clipping (n_tiers, n) [N·m]."""
 
     def bind(self, ref: Reference) -> None:
         """Prepare for a rollout on ``ref`` (may precompute, e.g. inverse kinematics)."""
         ...
 
-    def command(
-        self,
-        k: int,
-        q: np.ndarray,
-        vm: np.ndarray,
-        tau: np.ndarray,
-        tier_tau: np.ndarray,
-        e6: np.ndarray,
-    ) -> int:
-        """Write the clipped torque command for tick ``k`` into ``tau``.
+    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+        """Compute the command for tick ``k`` into ``tau``, ``e6`` and ``tier_tau``.
 
-        ``q``/``vm`` are the measured joint positions [rad] and velocities [rad/s];
-        ``tier_tau`` (n_tiers, n) receives each tier's share, ``e6`` the tip pose error
-        [m; rad] (world axes). Returns 0, or a non-zero status for a singular solve.
+        ``q``/``vm`` are the measured joint positions [rad] and velocities [rad/s].
+        Returns 0, or a non-zero status for a singular solve.
         """
         ...

@@ -120,6 +120,9 @@ class JointSpaceController:
         self._cache: dict[str, ClikSolution] = {}
         self.sol: ClikSolution | None = None
         self._rv = np.empty(3)
+        self.tau = np.zeros(arm.n)
+        self.e6 = np.zeros(6)
+        self.tier_tau = np.zeros((1, arm.n))
 
     def bind(self, ref: Reference) -> None:
         key = ref.name
@@ -135,21 +138,14 @@ class JointSpaceController:
         self.sol = self._cache[key]
         self.ref = ref
 
-    def command(
-        self,
-        k: int,
-        q: np.ndarray,
-        vm: np.ndarray,
-        tau: np.ndarray,
-        tier_tau: np.ndarray,
-        e6: np.ndarray,
-    ) -> int:
+    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
         sol = self.sol
         if sol is None:
             raise RuntimeError("bind() a reference before command()")
         pin.framesForwardKinematics(model, data, q)
         f = data.oMf[fid]
+        e6, tau = self.e6, self.tau
         e6[:3] = self.ref.p[k] - f.translation
         kernels.log3(self.ref.R[k] @ f.rotation.T, self._rv)
         e6[3:] = self._rv
@@ -157,5 +153,5 @@ class JointSpaceController:
         h = pin.nonLinearEffects(model, data, q, vm)
         t = M @ (sol.a[k] + self.kp * (sol.q[k] - q) + self.kd * (sol.v[k] - vm)) + h
         np.clip(t, -self.effort, self.effort, out=tau)
-        tier_tau[0, :] = t - h
+        self.tier_tau[0, :] = t - h
         return 0

@@ -98,15 +98,29 @@ def tier_solve(
     a: np.ndarray,
     lam: float,
     tau: np.ndarray,
+    ws: np.ndarray,
 ) -> int:
     """Add to ``tau`` this tier's τ = Sᵀ W⁻¹ Bᵀ (B W⁻¹ Bᵀ + λI)⁻¹ a (see tiered.py).
 
     ``rows`` index J's task rows, ``joints`` the tier's joints, ``a`` (len(rows),).
     When the tier has fewer joints than rows the equal form (BᵀB + λW)⁻¹ Bᵀ a is used.
+    ``ws`` is scratch of at least 3·n² + 3·n + 36 floats (n = J.shape[1]).
     """
     m = rows.shape[0]
     s = joints.shape[0]
-    B = np.empty((m, s))
+    big = max(m, s)
+    o = 0
+    B = ws[o : o + m * s].reshape((m, s))
+    o += m * s
+    W = ws[o : o + s * s].reshape((s, s))
+    o += s * s
+    X = ws[o : o + s * m].reshape((s, m))
+    o += s * m
+    G = ws[o : o + big * big]
+    o += big * big
+    col = ws[o : o + big]
+    o += big
+    y = ws[o : o + big]
     for i in range(m):
         r = rows[i]
         for c in range(s):
@@ -115,146 +129,199 @@ def tier_solve(
             for k in range(J.shape[1]):
                 acc += J[r, k] * Minv[k, jc]
             B[i, c] = acc
-    W = np.empty((s, s))
     for i in range(s):
         for c in range(s):
             W[i, c] = Minv[joints[i], joints[c]]
     if s >= m:
         if not cholesky(W):
             return SINGULAR
-        X = np.empty((s, m))  # W⁻¹ Bᵀ
-        col = np.empty(s)
-        for c in range(m):
+        cs = col[:s]
+        for c in range(m):  # X = W⁻¹ Bᵀ
             for i in range(s):
-                col[i] = B[c, i]
-            cho_solve_vec(W, col)
+                cs[i] = B[c, i]
+            cho_solve_vec(W, cs)
             for i in range(s):
-                X[i, c] = col[i]
-        G = B @ X
+                X[i, c] = cs[i]
+        Gm = G[: m * m].reshape((m, m))
         for i in range(m):
-            G[i, i] += lam
-        if not cholesky(G):
+            for c in range(m):
+                acc = 0.0
+                for r in range(s):
+                    acc += B[i, r] * X[r, c]
+                Gm[i, c] = acc
+            Gm[i, i] += lam
+        if not cholesky(Gm):
             return SINGULAR
-        y = a.copy()
-        cho_solve_vec(G, y)
+        ym = y[:m]
+        for i in range(m):
+            ym[i] = a[i]
+        cho_solve_vec(Gm, ym)
         for i in range(s):
             acc = 0.0
             for c in range(m):
-                acc += X[i, c] * y[c]
+                acc += X[i, c] * ym[c]
             tau[joints[i]] += acc
     else:
-        G = B.T @ B
+        Gs = G[: s * s].reshape((s, s))
+        ys = y[:s]
         for i in range(s):
+            acc = 0.0
+            for r in range(m):
+                acc += B[r, i] * a[r]
+            ys[i] = acc
             for c in range(s):
-                G[i, c] += lam * W[i, c]
-        if not cholesky(G):
+                acc = 0.0
+                for r in range(m):
+                    acc += B[r, i] * B[r, c]
+                Gs[i, c] = acc + lam * W[i, c]
+        if not cholesky(Gs):
             return SINGULAR
-        y = B.T @ a
-        cho_solve_vec(G, y)
+        cho_solve_vec(Gs, ys)
         for i in range(s):
-            tau[joints[i]] += y[i]
+            tau[joints[i]] += ys[i]
     return OK
 
 
 @njit(cache=True)
 def tiered_command(
-    p: np.ndarray,
-    R: np.ndarray,
+    H: np.ndarray,
     J6: np.ndarray,
     dJv6: np.ndarray,
     h: np.ndarray,
     Minv: np.ndarray,
     q: np.ndarray,
     vm: np.ndarray,
-    pd: np.ndarray,
-    Rd: np.ndarray,
-    twd: np.ndarray,
-    accd: np.ndarray,
-    axes: np.ndarray,
-    tier_joints: np.ndarray,
-    tier_nj: np.ndarray,
-    tier_rows: np.ndarray,
-    tier_nr: np.ndarray,
-    tier_kp: np.ndarray,
-    tier_kd: np.ndarray,
-    tier_lam: np.ndarray,
-    kn: np.ndarray,
-    dn: np.ndarray,
-    qhome: np.ndarray,
-    null_eps: float,
-    effort: np.ndarray,
-    tau: np.ndarray,
-    tier_tau: np.ndarray,
-    e6: np.ndarray,
+    refs: np.ndarray,
+    k: int,
+    ip: np.ndarray,
+    fp: np.ndarray,
+    ws: np.ndarray,
+    out: np.ndarray,
 ) -> int:
-    """One tick of the tiered law; writes the clipped command into ``tau``.
+    """One tick of the tiered law (see tiered.py); returns 0 or SINGULAR.
 
-    ``tier_rows[k, :tier_nr[k]]`` index rows of the task (positions in ``axes``),
-    ``tier_joints[k, :tier_nj[k]]`` the tier's joints; ``tier_kp``/``tier_kd`` are per
-    task row (len(axes)). Tier 0 also carries the feed-forward ẍ_d − J̇v.
+    ``H`` is the tip placement (4×4), ``refs[k]`` the packed reference row
+    [p_d (3), R_d (9, row-major), ẋ_d (6), ẍ_d (6)]. ``ip``/``fp`` pack the plan
+    (layout in ``TieredController._pack``). Writes into ``out``: the clipped command
+    (n), the tip pose error e (6), each tier's torque (K·n). Tier 0 carries ẍ_d − J̇v.
     """
-    n = q.shape[0]
-    m = axes.shape[0]
-    RdRt = Rd @ R.T
-    rv = np.empty(3)
+    n = ip[0]
+    m = ip[1]
+    K = ip[2]
+    axes = ip[3 : 3 + m]
+    null_eps = fp[0]
+    kn = fp[1 : 1 + n]
+    dn = fp[1 + n : 1 + 2 * n]
+    qhome = fp[1 + 2 * n : 1 + 3 * n]
+    effort = fp[1 + 3 * n : 1 + 4 * n]
+    tau = out[:n]
+    e6 = out[n : n + 6]
+    tier_tau = out[n + 6 : n + 6 + K * n].reshape((K, n))
+    ref = refs[k]
+    o = 0
+    rv = ws[o : o + 3]
+    o += 3
+    RdRt = ws[o : o + 9].reshape((3, 3))
+    o += 9
+    J = ws[o : o + m * n].reshape((m, n))
+    o += m * n
+    e = ws[o : o + m]
+    o += m
+    ed = ws[o : o + m]
+    o += m
+    ff = ws[o : o + m]
+    o += m
+    a = ws[o : o + m]
+    o += m
+    u = ws[o : o + n]
+    o += n
+    z = ws[o : o + m]
+    o += m
+    JMi = ws[o : o + m * n].reshape((m, n))
+    o += m * n
+    Li = ws[o : o + m * m].reshape((m, m))
+    o += m * m
+    scratch = ws[o:]
+    for i in range(3):
+        for c in range(3):
+            RdRt[i, c] = (
+                ref[3 + 3 * i] * H[c, 0] + ref[4 + 3 * i] * H[c, 1] + ref[5 + 3 * i] * H[c, 2]
+            )
     log3(RdRt, rv)
     for i in range(3):
-        e6[i] = pd[i] - p[i]
+        e6[i] = ref[i] - H[i, 3]
         e6[3 + i] = rv[i]
-    ed6 = twd - J6 @ vm
-    J = np.empty((m, n))
-    e = np.empty(m)
-    ed = np.empty(m)
-    ff = np.empty(m)
     for i in range(m):
         ax = axes[i]
         e[i] = e6[ax]
-        ed[i] = ed6[ax]
-        ff[i] = accd[ax] - dJv6[ax]
+        acc = ref[12 + ax]
         for c in range(n):
             J[i, c] = J6[ax, c]
+            acc -= J6[ax, c] * vm[c]
+        ed[i] = acc
+        ff[i] = ref[18 + ax] - dJv6[ax]
     for i in range(n):
         tau[i] = 0.0
-    K = tier_nj.shape[0]
-    tk = np.zeros(n)
-    for k in range(K):
-        nr = tier_nr[k]
-        rows = tier_rows[k, :nr]
-        a = np.empty(nr)
+    pi = 3 + m
+    pf = 1 + 4 * n
+    for t in range(K):
+        nj = ip[pi]
+        joints = ip[pi + 1 : pi + 1 + nj]
+        nr = ip[pi + 1 + nj]
+        rows = ip[pi + 2 + nj : pi + 2 + nj + nr]
+        pi += 2 + nj + nr
+        lam = fp[pf]
+        kp = fp[pf + 1 : pf + 1 + m]
+        kd = fp[pf + 1 + m : pf + 1 + 2 * m]
+        pf += 1 + 2 * m
+        at = a[:nr]
         for i in range(nr):
             r = rows[i]
-            a[i] = tier_kp[k, r] * e[r] + tier_kd[k, r] * ed[r]
-            if k == 0:
-                a[i] += ff[r]
+            at[i] = kp[r] * e[r] + kd[r] * ed[r]
+            if t == 0:
+                at[i] += ff[r]
+        tk = tier_tau[t]
         for i in range(n):
             tk[i] = 0.0
-        status = tier_solve(Minv, J, rows, tier_joints[k, : tier_nj[k]], a, tier_lam[k], tk)
+        status = tier_solve(Minv, J, rows, joints, at, lam, tk, scratch)
         if status != OK:
             return status
         for i in range(n):
-            tier_tau[k, i] = tk[i]
             tau[i] += tk[i]
     # dynamically consistent null-space posture: Nᵀ u, Nᵀ = I − Jᵀ Λ J M⁻¹
-    u = np.empty(n)
     for i in range(n):
         u[i] = kn[i] * (qhome[i] - q[i]) - dn[i] * vm[i]
-    JMi = J @ Minv
-    Li = JMi @ J.T
     for i in range(m):
+        for c in range(n):
+            acc = 0.0
+            for r in range(n):
+                acc += J[i, r] * Minv[r, c]
+            JMi[i, c] = acc
+    for i in range(m):
+        acc = 0.0
+        for r in range(n):
+            acc += JMi[i, r] * u[r]
+        z[i] = acc
+        for c in range(m):
+            acc = 0.0
+            for r in range(n):
+                acc += JMi[i, r] * J[c, r]
+            Li[i, c] = acc
         Li[i, i] += null_eps
     if not cholesky(Li):
         return SINGULAR
-    z = JMi @ u
     cho_solve_vec(Li, z)
-    tn = u - J.T @ z
     for i in range(n):
-        t = tau[i] + tn[i] + h[i]
+        tn = u[i]
+        for r in range(m):
+            tn -= J[r, i] * z[r]
+        t_ = tau[i] + tn + h[i]
         lim = effort[i]
-        if t > lim:
-            t = lim
-        elif t < -lim:
-            t = -lim
-        tau[i] = t
+        if t_ > lim:
+            t_ = lim
+        elif t_ < -lim:
+            t_ = -lim
+        tau[i] = t_
     return OK
 
 
@@ -317,13 +384,26 @@ def drive(
     tau_del: np.ndarray,
 ) -> None:
     """Mean delivered torque over the step, minus joint friction; advances ``xa``."""
-    y = Cm @ xa + Dm @ u_d
-    xn = Ad @ xa + Bd @ u_d
-    for i in range(xa.shape[0]):
+    nx = xa.shape[0]
+    n = v.shape[0]
+    for j in range(n):
+        y = 0.0
+        for i in range(nx):
+            y += Cm[j, i] * xa[i]
+        for i in range(n):
+            y += Dm[j, i] * u_d[i]
+        tau_del[j] = y
+        tau_net[j] = y - coulomb[j] * math.tanh(v[j] / v_eps[j]) - viscous[j] * v[j]
+    xn = np.empty(nx)
+    for i in range(nx):
+        acc = 0.0
+        for c in range(nx):
+            acc += Ad[i, c] * xa[c]
+        for c in range(n):
+            acc += Bd[i, c] * u_d[c]
+        xn[i] = acc
+    for i in range(nx):
         xa[i] = xn[i]
-    for j in range(v.shape[0]):
-        tau_del[j] = y[j]
-        tau_net[j] = y[j] - coulomb[j] * math.tanh(v[j] / v_eps[j]) - viscous[j] * v[j]
 
 
 @njit(cache=True)
@@ -332,3 +412,56 @@ def integrate(q: np.ndarray, v: np.ndarray, a: np.ndarray, h: float) -> None:
     for j in range(q.shape[0]):
         v[j] += h * a[j]
         q[j] += h * v[j]
+
+
+@njit(cache=True)
+def record(
+    k: int,
+    q: np.ndarray,
+    v: np.ndarray,
+    e6: np.ndarray,
+    u: np.ndarray,
+    tau_del: np.ndarray,
+    tier_tau: np.ndarray,
+    Q: np.ndarray,
+    E: np.ndarray,
+    TC: np.ndarray,
+    TD: np.ndarray,
+    TT: np.ndarray,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    max_err2: float,
+    pinned: np.ndarray,
+    pinned_ticks: int,
+    status: int,
+) -> int:
+    """Log tick ``k`` and check for divergence.
+
+    Returns 0, or: 1 singular solve, 2 non-finite state, 3 tip error over the bound,
+    4 a command pinned at its limit too long, 10 + j joint j outside its limits.
+    """
+    n = q.shape[0]
+    for i in range(6):
+        E[k, i] = e6[i]
+    for j in range(n):
+        TC[k, j] = u[j]
+        TD[k, j] = tau_del[j]
+        for t in range(tier_tau.shape[0]):
+            TT[k, t, j] = tier_tau[t, j]
+    if status != 0:
+        return 1
+    finite = True
+    for j in range(n):
+        if not (math.isfinite(q[j]) and math.isfinite(v[j])):
+            finite = False
+    if not finite:
+        return 2
+    if e6[0] * e6[0] + e6[1] * e6[1] + e6[2] * e6[2] > max_err2:
+        return 3
+    for j in range(n):
+        if pinned[j] >= pinned_ticks:
+            return 4
+    for j in range(n):
+        if q[j] < lower[j] or q[j] > upper[j]:
+            return 10 + j
+    return 0

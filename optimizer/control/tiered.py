@@ -56,7 +56,11 @@ def null_projector_t(M: np.ndarray, J: np.ndarray) -> np.ndarray:
 
 
 class TieredController:
-    """The tiered law for one plan on one arm (the numba kernel does the maths)."""
+    """The tiered law for one plan on one arm (the numba kernel does the maths).
+
+    After ``command`` the attributes ``tau`` (clipped command, n), ``e6`` (tip pose
+    error [m; rad], 6) and ``tier_tau`` (each tier's share, K×n) hold the results.
+    """
 
     def __init__(self, arm: Arm, plan: Plan, settings: ControlSettings, kind: str = "plan") -> None:
         self.arm = arm
@@ -65,63 +69,65 @@ class TieredController:
         self.kind = kind
         self.n_tiers = len(plan.tiers)
         n = arm.n
-        axes = np.array(settings.task_axes, dtype=np.int64)
-        m = len(axes)
-        K = self.n_tiers
-        self.axes = axes
-        self.tier_joints = np.zeros((K, n), dtype=np.int64)
-        self.tier_nj = np.zeros(K, dtype=np.int64)
-        self.tier_rows = np.zeros((K, m), dtype=np.int64)
-        self.tier_nr = np.zeros(K, dtype=np.int64)
-        self.tier_kp = np.zeros((K, m))
-        self.tier_kd = np.zeros((K, m))
-        self.tier_lam = np.zeros(K)
         for k, tier in enumerate(plan.tiers):
             if max(tier.joints) >= n:
                 raise ValueError(f"tier {k + 1} names joint index {max(tier.joints)} of {n}")
-            self.tier_joints[k, : len(tier.joints)] = tier.joints
-            self.tier_nj[k] = len(tier.joints)
-            rows = []
-            for i, ax in enumerate(axes):
-                is_pos = ax < 3
-                kp = tier.kp_t if is_pos else tier.kp_r
-                kd = tier.kd_t if is_pos else tier.kd_r
-                self.tier_kp[k, i] = kp
-                self.tier_kd[k, i] = kd
-                if k == 0 or kp > 0.0:
-                    rows.append(i)
-            self.tier_rows[k, : len(rows)] = rows
-            self.tier_nr[k] = len(rows)
-            self.tier_lam[k] = settings.tier_damping if tier.damping is None else tier.damping
         self.kn = _per_joint(settings.null_stiffness, n)
         self.dn = _per_joint(settings.null_damping, n)
         self.qhome = np.array(arm.home)
         self.effort = np.array(arm.effort)
         self.data = arm.model.createData()
         self._zero = np.zeros(n)
-        self.ref: Reference | None = None
         self._one_joint = n == 1
+        self.ref: Reference | None = None
+        self._refs = np.zeros((1, 24))
+        m = len(settings.task_axes)
+        self._out = np.zeros(n + 6 + self.n_tiers * n)
+        self.tau = self._out[:n]
+        self.e6 = self._out[n : n + 6]
+        self.tier_tau = self._out[n + 6 :].reshape(self.n_tiers, n)
+        self._ws = np.zeros(9 + 3 + 2 * m * n + 5 * m + n + m * m + 3 * n * n + 3 * n + 64)
+        self.pack()
+
+    def pack(self) -> None:
+        """Pack the plan into the kernel's int and float arrays (call after changing gains).
+
+        ints: [n, m, K, axes(m), per tier: nj, joints(nj), nr, rows(nr)]
+        floats: [null_eps, kn(n), dn(n), q_home(n), effort(n), per tier: λ, kp(m), kd(m)]
+        """
+        n = self.arm.n
+        axes = list(self.settings.task_axes)
+        m = len(axes)
+        ints: list[int] = [n, m, self.n_tiers, *axes]
+        floats: list[float] = [
+            self.settings.null_eps,
+            *self.kn,
+            *self.dn,
+            *self.qhome,
+            *self.effort,
+        ]
+        for k, tier in enumerate(self.plan.tiers):
+            kp = [tier.kp_t if ax < 3 else tier.kp_r for ax in axes]
+            kd = [tier.kd_t if ax < 3 else tier.kd_r for ax in axes]
+            rows = [i for i in range(m) if k == 0 or kp[i] > 0.0]
+            ints += [len(tier.joints), *tier.joints, len(rows), *rows]
+            lam = self.settings.tier_damping if tier.damping is None else tier.damping
+            floats += [lam, *kp, *kd]
+        self._ip = np.array(ints, dtype=np.int64)
+        self._fp = np.array(floats, dtype=float)
 
     def bind(self, ref: Reference) -> None:
         self.ref = ref
-        self._p = ref.p
-        self._R = ref.R
-        self._tw = ref.twist
-        self._acc = ref.acc
+        N = len(ref.t)
+        self._refs = np.ascontiguousarray(
+            np.hstack([ref.p, ref.R.reshape(N, 9), ref.twist, ref.acc]), dtype=float
+        )
 
-    def command(
-        self,
-        k: int,
-        q: np.ndarray,
-        vm: np.ndarray,
-        tau: np.ndarray,
-        tier_tau: np.ndarray,
-        e6: np.ndarray,
-    ) -> int:
+    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
         pin.forwardKinematics(model, data, q, vm, self._zero)
         pin.computeJointJacobians(model, data)
-        oMf = pin.updateFramePlacement(model, data, fid)
+        H = pin.updateFramePlacement(model, data, fid).homogeneous
         J6 = pin.getFrameJacobian(model, data, fid, LWA)
         dJv = pin.getFrameClassicalAcceleration(model, data, fid, LWA).vector
         h = pin.nonLinearEffects(model, data, q, vm)
@@ -131,34 +137,7 @@ class TieredController:
             Minv = np.atleast_2d(Minv)
         return int(
             kernels.tiered_command(
-                oMf.translation,
-                oMf.rotation,
-                J6,
-                dJv,
-                h,
-                Minv,
-                q,
-                vm,
-                self._p[k],
-                self._R[k],
-                self._tw[k],
-                self._acc[k],
-                self.axes,
-                self.tier_joints,
-                self.tier_nj,
-                self.tier_rows,
-                self.tier_nr,
-                self.tier_kp,
-                self.tier_kd,
-                self.tier_lam,
-                self.kn,
-                self.dn,
-                self.qhome,
-                self.settings.null_eps,
-                self.effort,
-                tau,
-                tier_tau,
-                e6,
+                H, J6, dJv, h, Minv, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
             )
         )
 
