@@ -149,6 +149,9 @@ class ClosedLoop:
         self.pinned_ticks = max(1, int(round(self.settings.pinned_s / self.dt)))
         # scratch
         self._ud = np.zeros(n)
+        self._ABd = np.ascontiguousarray(np.hstack([self.bank.Ad, self.bank.Bd]))
+        self._CDm = np.ascontiguousarray(np.hstack([self.bank.Cm, self.bank.Dm]))
+        self._fr = np.ascontiguousarray(np.vstack([self.coulomb, self.v_eps, self.viscous]))
         self._net = np.zeros(n)
         self._del = np.zeros(n)
         self._del_sum = np.zeros(n)
@@ -206,45 +209,19 @@ class ClosedLoop:
             st.pinned,
             self._ud,
         )
-        b = self.bank
-        if self.settings.substeps == 1:
-            kernels.drive(
-                st.xa,
-                self._ud,
-                b.Ad,
-                b.Bd,
-                b.Cm,
-                b.Dm,
-                st.v,
-                self.coulomb,
-                self.v_eps,
-                self.viscous,
-                self._net,
-                self._del,
+        nsub = self.settings.substeps
+        if nsub > 1:
+            self._del_sum[:] = 0.0
+        for _ in range(nsub):
+            kernels.drive_packed(
+                st.xa, self._ud, self._ABd, self._CDm, self._fr, st.v, self._net, self._del
             )
             a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
             kernels.integrate(st.q, st.v, a, self.h)
-        else:
-            self._del_sum[:] = 0.0
-            for _ in range(self.settings.substeps):
-                kernels.drive(
-                    st.xa,
-                    self._ud,
-                    b.Ad,
-                    b.Bd,
-                    b.Cm,
-                    b.Dm,
-                    st.v,
-                    self.coulomb,
-                    self.v_eps,
-                    self.viscous,
-                    self._net,
-                    self._del,
-                )
+            if nsub > 1:
                 self._del_sum += self._del
-                a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
-                kernels.integrate(st.q, st.v, a, self.h)
-            self._del[:] = self._del_sum / self.settings.substeps
+        if nsub > 1:  # the logged delivered torque is the mean over the tick
+            self._del[:] = self._del_sum / nsub
         return status, int(worst)
 
     def step_map(self, k: int, x: np.ndarray, like: LoopState) -> np.ndarray:

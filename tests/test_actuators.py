@@ -55,7 +55,7 @@ def test_first_order_corner_is_minus_3db_and_minus_45deg() -> None:
     """At ω = ωc the first-order lag is −3.0103 dB and −45.000° (REFERENCES §5, scipy.signal)."""
     m = FirstOrder(10.0)
     A, B, C = m.continuous()
-    _, H = sg.freqresp(sg.StateSpace(A, B, C, 0), w=[2 * math.pi * 10.0])
+    _, H = sg.freqresp(sg.StateSpace(A, B, C, np.zeros((1, 1))), w=[2 * math.pi * 10.0])
     assert 20 * np.log10(abs(H[0])) == pytest.approx(-3.0103, abs=1e-4)
     assert math.degrees(np.angle(H[0])) == pytest.approx(-45.0, abs=1e-6)
     assert m.bandwidth_hz() == 10.0
@@ -85,7 +85,7 @@ def test_second_order_overshoot_and_bandwidth(zeta, overshoot, bw) -> None:
         peak = max(peak, float((bank.C @ x)[0]))
     assert 100 * (peak - 1.0) == pytest.approx(overshoot, abs=1e-3)
     A, B, C = m.continuous()
-    _, H = sg.freqresp(sg.StateSpace(A, B, C, 0), w=[bw])
+    _, H = sg.freqresp(sg.StateSpace(A, B, C, np.zeros((1, 1))), w=[bw])
     assert 20 * np.log10(abs(H[0])) == pytest.approx(-3.0103, abs=1e-3)
 
 

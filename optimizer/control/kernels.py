@@ -465,3 +465,37 @@ def record(
         if q[j] < lower[j] or q[j] > upper[j]:
             return 10 + j
     return 0
+
+
+@njit(cache=True)
+def drive_packed(
+    xa: np.ndarray,
+    u_d: np.ndarray,
+    ABd: np.ndarray,
+    CDm: np.ndarray,
+    fr: np.ndarray,
+    v: np.ndarray,
+    tau_net: np.ndarray,
+    tau_del: np.ndarray,
+) -> None:
+    """``drive`` with [Ad Bd] and [Cm Dm] side by side and friction rows [τ_c; v_ε; b]."""
+    nx = xa.shape[0]
+    n = v.shape[0]
+    for j in range(n):
+        y = 0.0
+        for i in range(nx):
+            y += CDm[j, i] * xa[i]
+        for i in range(n):
+            y += CDm[j, nx + i] * u_d[i]
+        tau_del[j] = y
+        tau_net[j] = y - fr[0, j] * math.tanh(v[j] / fr[1, j]) - fr[2, j] * v[j]
+    xn = np.empty(nx)
+    for i in range(nx):
+        acc = 0.0
+        for c in range(nx):
+            acc += ABd[i, c] * xa[c]
+        for c in range(n):
+            acc += ABd[i, nx + c] * u_d[c]
+        xn[i] = acc
+    for i in range(nx):
+        xa[i] = xn[i]
