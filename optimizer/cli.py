@@ -120,7 +120,16 @@ def _check(args: argparse.Namespace) -> int:
 def _score(args: argparse.Namespace) -> int:
     from .evaluate import score_joint_baseline, score_osc_baseline, score_plan
     from .plan import load_plan
-    from .report import SAFETY_SHORT, console, score_table, scores_json, write_atomic
+    from rich.markup import escape
+
+    from .report import (
+        SAFETY_SHORT,
+        console,
+        plan_legend,
+        score_table,
+        scores_json,
+        write_atomic,
+    )
 
     prob = _load(args.problem)
     plans = [load_plan(p, prob.arm.joint_names) for p in args.plan]
@@ -150,6 +159,9 @@ def _score(args: argparse.Namespace) -> int:
             scores.append(job())
     ref = next((s for s in scores if s.kind == "osc"), scores[0])
     out.print(score_table(scores, reference=ref))
+    out.print(escape("plans ([joints] t = kp_t, r = kp_r [1/s²], z = ζ):"))
+    for line in plan_legend(scores):
+        out.print(line)
     out.print(
         f"'vs OSC' compares the error index with '{ref.label}'. "
         f"Margin = 1 − spectral radius of the linearised one-period loop (< "

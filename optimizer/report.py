@@ -120,7 +120,7 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
             change = f"{(s.error_index / reference.error_index - 1.0) * 100:+.0f} %"
         feas = "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}"
         t.add_row(
-            f"[bold]{escape(s.label)}[/]\n{escape(s.plan_text)}",
+            f"[bold]{escape(s.label)}[/] ({s.tiers} tier{'s' if s.tiers > 1 else ''})",
             "[bold]all[/]",
             fmt(s.pos_rms_mm),
             fmt(s.pos_max_mm),
@@ -180,3 +180,8 @@ def console(stderr: bool = False) -> Console:
     stream = sys.stderr if stderr else sys.stdout
     width = None if stream.isatty() else 160
     return Console(stderr=stderr, highlight=False, width=width)
+
+
+def plan_legend(scores: Sequence[Score]) -> list[str]:
+    """One line per scored entry: its label and the plan (or gains) in compact form."""
+    return [f"  {escape(s.label)}: {escape(s.plan_text)}" for s in scores]
