@@ -118,10 +118,10 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _score(args: argparse.Namespace) -> int:
-    from .evaluate import score_joint_baseline, score_osc_baseline, score_plan
-    from .plan import load_plan
     from rich.markup import escape
 
+    from .evaluate import score_joint_baseline, score_osc_baseline, score_plan
+    from .plan import load_plan
     from .report import (
         SAFETY_SHORT,
         console,
