@@ -83,6 +83,36 @@ class BaselineGains:
 
 
 @dataclass(frozen=True)
+class SearchSpace:
+    """What the plan search may choose, from the problem's ``[search]`` table."""
+
+    max_tiers: int = 4
+    """Most tiers a plan may have [-]."""
+    subset_mode: str = "nested"
+    """``nested`` (joint by joint, each tier inside the previous) or ``ranked`` (fastest k)."""
+    kp_t_range: tuple[float, float] = (100.0, 20000.0)
+    """Log-uniform range of kp_t per tier [1/s²]."""
+    kp_r_range: tuple[float, float] = (100.0, 40000.0)
+    """Log-uniform range of kp_r per tier [1/s²]."""
+    zeta_range: tuple[float, float] = (0.5, 1.2)
+    """Range of the damping ratio per tier [-]."""
+    tier1_kp_t_range: tuple[float, float] | None = None
+    """kp_t range of tier 1 (every joint, capped by the slowest); None: kp_t_range [1/s²]."""
+    tier1_kp_r_range: tuple[float, float] | None = None
+    """kp_r range of tier 1; None: kp_r_range [1/s²]."""
+    tier_parts: bool = True
+    """Whether tiers after the first may act on position only or orientation only."""
+    never_alone: tuple[str, ...] = ()
+    """Joints that may not make up a tier on their own."""
+    joint_kp_range: tuple[float, float] = (100.0, 20000.0)
+    """Log-uniform range of the joint-space baseline's per-joint kp [1/s²]."""
+    trials: int = 60
+    """Default trial budget of ``search`` [-]."""
+    seed: int = 0
+    """Default sampler seed [-]."""
+
+
+@dataclass(frozen=True)
 class TrajectorySpec:
     """One trajectory of the set as written in the problem file."""
 
@@ -116,6 +146,8 @@ class Problem:
     """Scoring settings."""
     baseline: BaselineGains
     """Baseline gains for ``score --baselines``."""
+    search: SearchSpace
+    """What the plan search may choose."""
     trajectories: tuple[TrajectorySpec, ...]
     """The test set."""
     references: tuple[Reference, ...] = field(repr=False)
@@ -346,8 +378,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         if s.name in seen:
             raise ProblemError(path, f"trajectory[{i}].name", f"name '{s.name}' is used twice")
         seen.add(s.name)
-    for key in ("search",):  # read by later stages; accepted here
-        root.raw(key, None)
+    search = _read_search(root.table("search"), names)
     root.done()
 
     p0, R0 = arm.tip_pose(arm.home)
@@ -365,6 +396,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         sim=sim,
         scoring=scoring,
         baseline=baseline,
+        search=search,
         trajectories=tuple(specs),
         references=refs,
         digest=digest,
@@ -543,3 +575,42 @@ def _read_trajectory(t: TableReader, base: Path, path: Path) -> TrajectorySpec:
     kind = _read_kind(t, kind_name, tuple(TRAJECTORY_KINDS), base, path)
     t.done()
     return TrajectorySpec(name=name, kind=kind, duration_s=duration)
+
+
+def _range(
+    t: TableReader, key: str, default: tuple[float, float], positive: bool
+) -> tuple[float, float]:
+    lo, hi = t.floats(key, default, length=2, min_value=0.0)
+    if positive and lo <= 0.0:
+        raise t.fail(key, f"the lower end must be > 0 (log-uniform), got {lo:g}")
+    if hi < lo:
+        raise t.fail(key, f"must be [low, high] with low <= high, got [{lo:g}, {hi:g}]")
+    return (lo, hi)
+
+
+def _read_search(t: TableReader, names: Sequence[str]) -> SearchSpace:
+    never = t.strings("never_alone", ())
+    for j in never:
+        if j not in names:
+            raise t.fail("never_alone", f"no joint named '{j}'{suggestion(j, names)}")
+    t.seen.update({"tier1_kp_t_range", "tier1_kp_r_range"})
+    space = SearchSpace(
+        max_tiers=t.int("max_tiers", 4, min_value=1, max_value=8),
+        subset_mode=t.str("subset_mode", "nested", choices=("nested", "ranked")),
+        kp_t_range=_range(t, "kp_t_range", (100.0, 20000.0), True),
+        kp_r_range=_range(t, "kp_r_range", (100.0, 40000.0), True),
+        zeta_range=_range(t, "zeta_range", (0.5, 1.2), True),
+        tier1_kp_t_range=_range(t, "tier1_kp_t_range", (0.0, 0.0), True)
+        if t.has("tier1_kp_t_range")
+        else None,
+        tier1_kp_r_range=_range(t, "tier1_kp_r_range", (0.0, 0.0), True)
+        if t.has("tier1_kp_r_range")
+        else None,
+        tier_parts=t.bool("tier_parts", True),
+        never_alone=tuple(never),
+        joint_kp_range=_range(t, "joint_kp_range", (100.0, 20000.0), True),
+        trials=t.int("trials", 60, min_value=1, max_value=1_000_000),
+        seed=t.int("seed", 0, min_value=0),
+    )
+    t.done()
+    return space

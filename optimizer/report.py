@@ -185,3 +185,60 @@ def console(stderr: bool = False) -> Console:
 def plan_legend(scores: Sequence[Score]) -> list[str]:
     """One line per scored entry: its label and the plan (or gains) in compact form."""
     return [f"  {escape(s.label)}: {escape(s.plan_text)}" for s in scores]
+
+
+def change(value: float | None, ref: float | None) -> str:
+    """Relative change of an error index against a reference, as text."""
+    if value is None or ref is None or not ref > 0 or not math.isfinite(ref):
+        return "–"
+    return f"{(value / ref - 1.0) * 100:+.0f} %"
+
+
+def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) -> Table:
+    """The ranked search result: plans, hand plans and tuned baselines together."""
+    t = Table(title="ranking (feasible candidates; lower error index is better)")
+    cols = (
+        "rank",
+        "entry",
+        "tiers",
+        "pos RMS mm",
+        "rot RMS deg",
+        "margin",
+        "peak τ/lim",
+        "error idx",
+        "vs tuned OSC",
+        "vs tuned joint",
+    )
+    for c in cols:
+        t.add_column(c, justify="left" if c == "entry" else "right")
+    ro = osc["error_index"] if osc else None
+    rj = joint["error_index"] if joint else None
+    for e in ranked:
+        style = "bold" if e["kind"] != "plan" or e.get("source") == "hand" else ""
+        t.add_row(
+            str(e["rank"]),
+            escape(f"{e['label']} [{e.get('source', '')}]"),
+            str(e["tiers"]),
+            fmt(e["pos_rms_mm"]),
+            fmt(e["rot_rms_deg"]),
+            fmt(e["margin"], 2),
+            fmt(e["peak_torque_ratio"]),
+            fmt(e["error_index"]),
+            change(e["error_index"], ro),
+            change(e["error_index"], rj),
+            style=style,
+        )
+    return t
+
+
+def csv_text(rows: Sequence[dict], columns: Sequence[str]) -> str:
+    """Rows as CSV text with the given columns (missing values empty)."""
+    import csv
+    import io
+
+    buf = io.StringIO()
+    w = csv.writer(buf)
+    w.writerow(columns)
+    for r in rows:
+        w.writerow(["" if r.get(c) is None else r.get(c) for c in columns])
+    return buf.getvalue()
