@@ -9,8 +9,9 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from optimizer.problem import Problem, load_problem
 from problems import DEMO, PLANAR
+
+from optimizer.problem import Problem, load_problem
 
 
 @pytest.fixture(scope="session")

@@ -13,7 +13,6 @@ from scipy.linalg import expm
 from optimizer.actuators import FirstOrder, JointActuator, SecondOrder, discretize
 from optimizer.control import kernels
 
-
 # scipy converts the state space to a transfer function whose leading numerator
 # coefficients are zero and warns about it; the response it returns is exact.
 _TF_WARNING = pytest.mark.filterwarnings("ignore:Badly conditioned filter coefficients")

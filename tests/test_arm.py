@@ -7,10 +7,10 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
+from problems import pendulum_urdf, two_link_urdf
 
 from optimizer.arm import Arm, PlantDeviation
 from optimizer.control import kernels
-from problems import pendulum_urdf, two_link_urdf
 
 # Golden values: planar elbow manipulator (Spong, Hutchinson & Vidyasagar, "Robot Modeling
 # and Control", planar elbow manipulator example — section number from memory), recomputed

@@ -5,9 +5,9 @@ from __future__ import annotations
 import json
 
 import pytest
+from problems import PLANAR, PLANAR_PLANS, planar_variant
 
 from optimizer.cli import main
-from problems import PLANAR, PLANAR_PLANS, planar_variant
 
 BAD = [
     (

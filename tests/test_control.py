@@ -7,10 +7,10 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
+from problems import two_link_urdf
 
 from optimizer.arm import LWA
 from optimizer.control import dls, kernels, null_projector_t, osc_torque, tier_torque
-from problems import two_link_urdf
 
 
 def _random_spd(rng: np.random.Generator, n: int) -> np.ndarray:

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from problems import DEMO_PLANS, PLANAR_PLANS
 
 from optimizer.evaluate import osc_plan, score_joint_baseline, score_osc_baseline, score_plan
 from optimizer.plan import load_plan
-from problems import DEMO_PLANS, PLANAR_PLANS
 
 
 def test_three_tiers_beat_the_best_stable_single_tier(demo) -> None:

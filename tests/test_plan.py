@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import pytest
+from problems import DEMO_PLANS
 
 from optimizer.exceptions import PlanError
 from optimizer.plan import Plan, Tier, load_plan, parse_plan
-from problems import DEMO_PLANS
 
 NAMES = ("a", "b", "c", "d")
 

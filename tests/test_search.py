@@ -71,7 +71,9 @@ def test_same_seed_same_trials(planar, tmp_path) -> None:
     ]
 
 
-def test_search_beats_tuned_single_tier_osc_on_the_planar_arm(tmp_path, monkeypatch, capsys) -> None:
+def test_search_beats_tuned_single_tier_osc_on_the_planar_arm(
+    tmp_path, monkeypatch, capsys
+) -> None:
     """A short search finds a plan at least 30 % below tuned single-tier OSC, and writes results.
 
     Why (common practice, no source): the 6 Hz shoulder caps the gain of any loop through
@@ -79,8 +81,20 @@ def test_search_beats_tuned_single_tier_osc_on_the_planar_arm(tmp_path, monkeypa
     wrist can. The best plan written to best-plan.toml re-scores to the same numbers.
     """
     monkeypatch.chdir(tmp_path)
-    rc = main(["search", str(PLANAR), "--trials", "30", "--baseline-trials", "30", "--seed", "1",
-               "--plan", str(PLANAR_PLANS / "two-tier.toml")])
+    rc = main(
+        [
+            "search",
+            str(PLANAR),
+            "--trials",
+            "30",
+            "--baseline-trials",
+            "30",
+            "--seed",
+            "1",
+            "--plan",
+            str(PLANAR_PLANS / "two-tier.toml"),
+        ]
+    )
     assert rc == 0
     out = tmp_path / "results" / "planar3" / "main"
     ranking = json.loads((out / "ranking.json").read_text())

@@ -6,12 +6,12 @@ import math
 
 import numpy as np
 import pytest
+from problems import write_slider_problem
 
 from optimizer.evaluate import make_loop, plan_controller
 from optimizer.plan import Plan, Tier
 from optimizer.problem import load_problem
 from optimizer.stability import home_margin, jacobian_fd, spectral_radius
-from problems import write_slider_problem
 
 
 def test_jacobian_fd_of_a_linear_map_is_exact() -> None:
