@@ -85,6 +85,7 @@ class Arm:
         armature: Sequence[float] | np.ndarray | None = None,
     ) -> None:
         self.source = source
+        self.urdf_xml = urdf_xml
         self.model = build_model(urdf_xml, source)
         if not self.model.existFrame(tip_frame):
             names = [f.name for f in self.model.frames if f.name != "universe"]
@@ -140,6 +141,19 @@ class Arm:
                 tip.placement * offset
             ).act(sphere)
         return plant
+
+    def with_deviation(self, deviation: PlantDeviation) -> Arm:
+        """The same arm and controller model with another plant deviation."""
+        other = Arm(
+            self.urdf_xml,
+            self.tip_frame,
+            self.home,
+            deviation,
+            self.source,
+            armature=np.array(self.model.armature),
+        )
+        other.effort = self.effort
+        return other
 
     def tip_pose(self, q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Tip position [m] (3,) and rotation (3, 3) in the world, controller model."""

@@ -94,6 +94,26 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("--top", type=int, default=10, help="plans shown and written (default 10)")
     r.add_argument("--no-prune", action="store_true", help="run every trajectory of every trial")
     r.add_argument("--out", type=Path, help="results folder (default results/<problem>/<study>)")
+    c2 = sub.add_parser(
+        "compare",
+        help="score plans side by side on the same trajectories and seeds, optionally on "
+        "perturbed plants",
+    )
+    c2.add_argument("problem", type=Path, help="problem file (TOML)")
+    c2.add_argument("plans", type=Path, nargs="+", metavar="PLAN", help="plan files (TOML)")
+    c2.add_argument(
+        "--perturb",
+        type=int,
+        default=0,
+        metavar="N",
+        help="also run N perturbed plants (spreads in the problem's [perturb] table)",
+    )
+    c2.add_argument(
+        "--baselines",
+        action="store_true",
+        help="include both baselines at the gains of the problem's [baseline] table",
+    )
+    c2.add_argument("--json", type=Path, metavar="FILE", help="write the results as JSON")
     return p
 
 
@@ -115,6 +135,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _score(args)
         if args.command == "search":
             return _search(args)
+        if args.command == "compare":
+            return _compare(args)
     except InputError as err:
         if args.debug:
             raise
@@ -209,6 +231,73 @@ def _score(args: argparse.Namespace) -> int:
         write_atomic(args.json, scores_json(scores))
         out.print(f"wrote {args.json}")
     return EXIT_OK
+
+
+def _compare(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.markup import escape
+
+    from .compare import compare
+    from .evaluate import joint_gains_text, osc_plan
+    from .plan import load_plan
+    from .report import SAFETY_SHORT, console, robustness_table, write_atomic
+
+    prob = _load(args.problem)
+    if args.perturb < 0:
+        print(f"tierplan: error: --perturb must be >= 0, got {args.perturb}", file=sys.stderr)
+        return EXIT_INPUT
+    plans = [load_plan(p, prob.arm.joint_names) for p in args.plans]
+    n = prob.arm.n
+    cands = [(pl.label, pl.compact(n), functools.partial(_tiered_for, pl)) for pl in plans]
+    if args.baselines:
+        b = prob.baseline
+        op = osc_plan(prob, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
+        cands.append((op.label, op.compact(n), functools.partial(_tiered_for, op, kind="osc")))
+        cands.append(
+            (
+                "baseline: joint-space CLIK + PD",
+                joint_gains_text(b.joint_kp, b.joint_zeta),
+                functools.partial(_joint_for, b.joint_kp, b.joint_zeta),
+            )
+        )
+    out = console()
+    total = len(cands) * args.perturb
+    with out.status("simulating…") as status:
+        done = [0]
+
+        def tick(_: int) -> None:
+            done[0] += 1
+            status.update(f"perturbed plants {done[0]}/{total}…")
+
+        results = compare(prob, cands, args.perturb, on_draw=tick)
+    out.print(robustness_table(results, args.perturb))
+    for r in results:
+        out.print(f"  {escape(r.nominal.label)}: {escape(r.nominal.plan_text)}")
+    sp = prob.perturb
+    if args.perturb:
+        out.print(
+            f"perturbed plants: bandwidth ±{sp.bandwidth_rel:.0%}, delay ±{sp.delay_ticks} "
+            f"ticks, payload ±{sp.payload_rel:.0%}, friction ±{sp.friction_rel:.0%}, "
+            f"own noise seed each (draw seed {sp.seed}); the same plants for every plan."
+        )
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    if args.json:
+        write_atomic(args.json, json.dumps([r.to_dict() for r in results], indent=2) + "\n")
+        out.print(f"wrote {args.json}")
+    return EXIT_OK
+
+
+def _tiered_for(plan, problem, kind: str = "plan"):  # type: ignore[no-untyped-def]
+    from .evaluate import plan_controller
+
+    return plan_controller(problem, plan, kind=kind)
+
+
+def _joint_for(kp, zeta, problem):  # type: ignore[no-untyped-def]
+    from .evaluate import joint_controller
+
+    return joint_controller(problem, kp, zeta, label="baseline: joint-space CLIK + PD")
 
 
 def _search(args: argparse.Namespace) -> int:

@@ -113,6 +113,22 @@ class SearchSpace:
 
 
 @dataclass(frozen=True)
+class PerturbSpread:
+    """How ``compare --perturb`` draws perturbed plants, from the ``[perturb]`` table."""
+
+    bandwidth_rel: float = 0.15
+    """Each actuator's frequencies scaled by U(1 − s, 1 + s) [-]."""
+    delay_ticks: int = 1
+    """Each actuator's delay moved by a whole number in [−d, d] ticks, not below 0 [-]."""
+    payload_rel: float = 0.3
+    """Payload mass scaled by U(1 − s, 1 + s) [-]."""
+    friction_rel: float = 0.3
+    """Coulomb and viscous friction scaled by U(1 − s, 1 + s), per joint [-]."""
+    seed: int = 0
+    """Seed of the draws (each draw also gets its own noise seed)."""
+
+
+@dataclass(frozen=True)
 class TrajectorySpec:
     """One trajectory of the set as written in the problem file."""
 
@@ -148,6 +164,8 @@ class Problem:
     """Baseline gains for ``score --baselines``."""
     search: SearchSpace
     """What the plan search may choose."""
+    perturb: PerturbSpread
+    """Spreads of the perturbed plants of ``compare --perturb``."""
     trajectories: tuple[TrajectorySpec, ...]
     """The test set."""
     references: tuple[Reference, ...] = field(repr=False)
@@ -379,6 +397,15 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
             raise ProblemError(path, f"trajectory[{i}].name", f"name '{s.name}' is used twice")
         seen.add(s.name)
     search = _read_search(root.table("search"), names)
+    tpert = root.table("perturb")
+    perturb = PerturbSpread(
+        bandwidth_rel=tpert.float("bandwidth_rel", 0.15, min_value=0.0, max_value=0.9),
+        delay_ticks=tpert.int("delay_ticks", 1, min_value=0, max_value=100),
+        payload_rel=tpert.float("payload_rel", 0.3, min_value=0.0, max_value=1.0),
+        friction_rel=tpert.float("friction_rel", 0.3, min_value=0.0, max_value=1.0),
+        seed=tpert.int("seed", 0, min_value=0),
+    )
+    tpert.done()
     root.done()
 
     p0, R0 = arm.tip_pose(arm.home)
@@ -397,6 +424,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         scoring=scoring,
         baseline=baseline,
         search=search,
+        perturb=perturb,
         trajectories=tuple(specs),
         references=refs,
         digest=digest,

@@ -242,3 +242,35 @@ def csv_text(rows: Sequence[dict], columns: Sequence[str]) -> str:
     for r in rows:
         w.writerow(["" if r.get(c) is None else r.get(c) for c in columns])
     return buf.getvalue()
+
+
+def robustness_table(results: Sequence, n: int) -> Table:
+    """Nominal figures and, with perturbed plants, mean / p90 / worst error and feasible share."""
+    t = Table(
+        title="side by side" + (f" on the nominal plant and {n} perturbed plants" if n else "")
+    )
+    cols = ["entry", "tiers", "pos RMS mm", "rot RMS deg", "margin", "error idx", "feasible"]
+    if n:
+        cols += ["mean err", "p90 err", "worst err", "feasible share"]
+    for c in cols:
+        t.add_column(c, justify="left" if c == "entry" else "right")
+    for r in results:
+        s = r.nominal
+        row = [
+            escape(s.label),
+            str(s.tiers),
+            fmt(s.pos_rms_mm),
+            fmt(s.rot_rms_deg),
+            fmt(s.margin, 2),
+            fmt(s.error_index),
+            "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}",
+        ]
+        if n:
+            row += [
+                fmt(r.mean_error),
+                fmt(r.p90_error),
+                fmt(r.worst_error),
+                f"{r.feasible_fraction:.0%}",
+            ]
+        t.add_row(*row)
+    return t
