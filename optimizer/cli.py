@@ -1,4 +1,4 @@
-"""Command line: ``tierplan check`` and ``tierplan score``. Parsing and printing only."""
+"""Command line: ``check``, ``score``, ``search``, ``compare``, ``swap``. Parsing and printing."""
 
 from __future__ import annotations
 
@@ -64,25 +64,7 @@ def _parser() -> argparse.ArgumentParser:
         help="search tier plans with optuna; tune both baselines on the same budget; rank all",
     )
     r.add_argument("problem", type=Path, help="problem file (TOML)")
-    r.add_argument("--trials", type=int, help="plan trials in the study (default: [search] trials)")
-    r.add_argument(
-        "--baseline-trials",
-        type=int,
-        help="trials for each baseline study (default: the same as --trials)",
-    )
-    r.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
-    r.add_argument("--seed", type=int, help="sampler seed (default: [search] seed)")
-    r.add_argument(
-        "--study",
-        default="main",
-        help="study name; the same name resumes a stopped search (default: main)",
-    )
-    r.add_argument(
-        "--storage",
-        metavar="URL_OR_FILE",
-        help="optuna storage URL (sqlite:///..., postgresql://...) or a journal file; "
-        "default results/<problem>/studies.journal",
-    )
+    _search_options(r, "main")
     r.add_argument(
         "--plan",
         type=Path,
@@ -91,9 +73,30 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="hand plan to rank beside the optimized ones; repeatable",
     )
-    r.add_argument("--top", type=int, default=10, help="plans shown and written (default 10)")
-    r.add_argument("--no-prune", action="store_true", help="run every trajectory of every trial")
-    r.add_argument("--out", type=Path, help="results folder (default results/<problem>/<study>)")
+    w = sub.add_parser(
+        "swap",
+        help="apply new actuator settings, re-score a previous run's plans, search again "
+        "from them, show what changed",
+    )
+    w.add_argument("problem", type=Path, help="problem file (TOML)")
+    w.add_argument(
+        "--actuators",
+        type=Path,
+        action="append",
+        required=True,
+        metavar="FILE",
+        help="actuator file: [actuators.<joint>] tables with the keys of the problem file; "
+        "repeatable, applied in order",
+    )
+    w.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        required=True,
+        metavar="RUN",
+        help="results folder of the earlier search (results/<problem>/<study>)",
+    )
+    _search_options(r=w, study_default=None)
     c2 = sub.add_parser(
         "compare",
         help="score plans side by side on the same trajectories and seeds, optionally on "
@@ -117,6 +120,41 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+def _search_options(r: argparse.ArgumentParser, study_default: str | None) -> None:
+    """Options shared by ``search`` and ``swap``."""
+    r.add_argument("--trials", type=int, help="plan trials in the study (default: [search] trials)")
+    r.add_argument(
+        "--baseline-trials",
+        type=int,
+        help="trials for each baseline study (default: the same as --trials)",
+    )
+    r.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
+    r.add_argument("--seed", type=int, help="sampler seed (default: [search] seed)")
+    r.add_argument(
+        "--study",
+        default=study_default,
+        help="study name; the same name resumes a stopped search (default: "
+        + (study_default or "<earlier study>.swap-<file>-<hash>")
+        + ")",
+    )
+    r.add_argument(
+        "--storage",
+        metavar="URL_OR_FILE",
+        help="optuna storage URL (sqlite:///..., postgresql://...) or a journal file; "
+        "default results/<problem>/studies.journal",
+    )
+    r.add_argument(
+        "--objectives",
+        default="error",
+        help="'error' (default), or two objectives with a Pareto front: 'error,margin' "
+        "(maximise the stability margin) or 'error,effort' (minimise RMS torque); "
+        "two objectives turn pruning off",
+    )
+    r.add_argument("--top", type=int, default=10, help="plans shown and written (default 10)")
+    r.add_argument("--no-prune", action="store_true", help="run every trajectory of every trial")
+    r.add_argument("--out", type=Path, help="results folder (default results/<problem>/<study>)")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     args = _parser().parse_args(argv)
@@ -137,6 +175,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _search(args)
         if args.command == "compare":
             return _compare(args)
+        if args.command == "swap":
+            return _swap(args)
     except InputError as err:
         if args.debug:
             raise
@@ -300,24 +340,8 @@ def _joint_for(kp, zeta, problem):  # type: ignore[no-untyped-def]
     return joint_controller(problem, kp, zeta, label="baseline: joint-space CLIK + PD")
 
 
-def _search(args: argparse.Namespace) -> int:
-    import json
-    import platform
-    import time
-
-    import numpy as np
-    import optuna
-    import pinocchio
-    import scipy
-    from rich.markup import escape
-    from rich.progress import BarColumn, Progress, TaskID, TextColumn, TimeElapsedColumn
-
-    from . import search as srch
-    from .evaluate import score_plan
-    from .plan import load_plan
-    from .report import SAFETY_SHORT, console, csv_text, ranking_table, write_atomic
-
-    prob = _load(args.problem)
+def _budgets(args: argparse.Namespace, prob) -> tuple[int, int, int] | None:  # type: ignore[no-untyped-def]
+    """trials, baseline trials, seed from the options and the problem; None after an error."""
     sp = prob.search
     trials = args.trials if args.trials is not None else sp.trials
     btrials = args.baseline_trials if args.baseline_trials is not None else trials
@@ -330,177 +354,229 @@ def _search(args: argparse.Namespace) -> int:
     ):
         if v < 1:
             print(f"tierplan: error: {name} must be >= 1, got {v}", file=sys.stderr)
-            return EXIT_INPUT
-    plans = [load_plan(p, prob.arm.joint_names) for p in args.plan]
-    storage = args.storage or str(Path("results") / prob.name / "studies.journal")
-    out_dir = args.out or Path("results") / prob.name / args.study
-    out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
-    enqueue, direct = [], []
-    for pl in plans:
-        params = srch.plan_params(pl, prob)
-        if params is None:
-            direct.append(pl)
-        else:
-            enqueue.append((params, {"source": "hand", "label": pl.label}))
-    t0 = time.perf_counter()
-    studies = {}
-    runs = [
-        ("plan", args.study, trials, enqueue),
-        ("osc", args.study + ".osc", btrials, []),
-        ("joint_space", args.study + ".joint", btrials, []),
-    ]
+            return None
+    return trials, btrials, seed
+
+
+def _objectives(text: str) -> tuple[str, ...] | None:
+    from .search import SECOND_OBJECTIVES
+
+    parts = tuple(p.strip() for p in text.split(",") if p.strip())
+    if parts == ("error",) or (
+        len(parts) == 2 and parts[0] == "error" and parts[1] in SECOND_OBJECTIVES
+    ):
+        return parts
+    print(
+        f"tierplan: error: --objectives '{text}' is not one of: error, "
+        + ", ".join(f"error,{o}" for o in SECOND_OBJECTIVES),
+        file=sys.stderr,
+    )
+    return None
+
+
+def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
+    """Run the three studies under a progress display; print the ranking."""
+    from rich.markup import escape
+    from rich.progress import (
+        BarColumn,
+        Progress,
+        TaskID,
+        TextColumn,
+        TimeElapsedColumn,
+        TimeRemainingColumn,
+    )
+
+    from . import search as srch
+    from .report import ranking_table
+    from .runs import run_studies
+
     with Progress(
         TextColumn("{task.description}"),
         BarColumn(),
         TextColumn("{task.completed}/{task.total}"),
         TextColumn("{task.fields[info]}"),
         TimeElapsedColumn(),
+        TextColumn("left"),
+        TimeRemainingColumn(),
         console=out,
     ) as progress:
-        for kind, name, n, enq in runs:
-            task = progress.add_task(f"{kind:12s}", total=n, info="")
+        tasks: dict[str, TaskID] = {}
 
-            def update(study: optuna.Study, task: TaskID = task, n: int = n) -> None:
-                ts = study.get_trials(deepcopy=False)
-                done = srch.finished(study)
-                feas = [t for t in ts if srch.feasible(t)]
-                best = min((t.value for t in feas if t.value is not None), default=None)
-                info = f"feasible {len(feas)}" + (f", best {best:.3g}" if best is not None else "")
-                progress.update(task, completed=min(done, n), info=info)
+        def update(kind: str, n: int, study) -> None:  # type: ignore[no-untyped-def]
+            if kind not in tasks:
+                tasks[kind] = progress.add_task(f"{kind:12s}", total=n, info="")
+            ts = study.get_trials(deepcopy=False)
+            feas = sum(1 for t in ts if srch.feasible(t))
+            best = srch.best_value(study)
+            info = f"feasible {feas}" + (f", best {best:.3g}" if best is not None else "")
+            progress.update(tasks[kind], completed=min(srch.finished(study), n), info=info)
 
-            studies[kind] = srch.run_search(
-                prob,
-                storage,
-                name,
-                kind,
-                n,
-                seed,
-                args.workers,
-                prune=not args.no_prune,
-                enqueue=enq,
-                on_progress=update,
-            )
-            update(studies[kind])
-    elapsed = time.perf_counter() - t0
-    plan_e = srch.entries(studies["plan"], "search")
-    for pl in direct:  # hand plans the search space cannot express: scored as they are
-        d = score_plan(prob, pl).to_dict()
-        if d["feasible"]:
-            plan_e.append({**d, "trial": None, "source": "hand", "plan_toml": pl.to_toml()})
-        else:
-            out.print(
-                f"[yellow]hand plan '{escape(pl.label)}' is infeasible: "
-                f"{escape(str(d['reason']))}[/]"
-            )
-    plan_e.sort(key=lambda e: e["error_index"])
-    osc_e = srch.entries(studies["osc"], "tuned")
-    joint_e = srch.entries(studies["joint_space"], "tuned")
-    osc, joint = (osc_e[0] if osc_e else None), (joint_e[0] if joint_e else None)
-    ranked = srch.rank(plan_e, [e for e in (osc, joint) if e], args.top)
-    for e in ranked:
-        e["vs_tuned_osc"] = (e["error_index"] / osc["error_index"] - 1) if osc else None
-        e["vs_tuned_joint"] = (e["error_index"] / joint["error_index"] - 1) if joint else None
-    out.print(ranking_table(ranked, osc, joint))
-    for e in ranked:
+        result = run_studies(prob, settings, seeded, on_progress=update)
+    out.print(ranking_table(result.ranked, result.osc, result.joint))
+    for e in result.ranked:
         out.print(f"  {e['rank']}. {escape(e['label'])}: {escape(e['plan_text'])}")
-    hand_missing = [
-        pl.label
-        for pl in plans
-        if not any(e.get("source") == "hand" and e["label"] == pl.label for e in ranked)
-    ]
-    for lab in hand_missing:
+    if len(settings.objectives) > 1:
+        front = [e for e in result.plan_entries if e.get("pareto")]
         out.print(
-            f"[yellow]hand plan '{escape(lab)}' did not make the ranking (infeasible or pruned)[/]"
+            f"two objectives (error, {settings.objectives[1]}): {len(front)} plans on the "
+            "feasible Pareto front, all kept in the ranking (column 'Pareto'); the baselines "
+            "are tuned for error alone."
         )
-    if not plan_e:
-        out.print("[red]no feasible plan was found[/]: widen the gain ranges or give more trials")
-    cols = [
-        "rank",
-        "label",
-        "kind",
-        "source",
-        "trial",
-        "tiers",
-        "plan_text",
-        "pos_rms_mm",
-        "rot_rms_deg",
-        "pos_max_mm",
-        "rot_max_deg",
-        "margin",
-        "peak_torque_ratio",
-        "tau_rms_nm",
-        "error_index",
-        "vs_tuned_osc",
-        "vs_tuned_joint",
-        "feasible",
-    ]
-    write_atomic(
-        out_dir / "ranking.json",
-        json.dumps([{k: v for k, v in e.items() if k != "plan_toml"} for e in ranked], indent=2)
-        + "\n",
-    )
-    write_atomic(out_dir / "ranking.csv", csv_text(ranked, cols))
-    trial_rows = []
-    for kind, st in studies.items():
-        for t in st.get_trials(deepcopy=False):
-            sc = t.user_attrs.get("score", {})
-            trial_rows.append(
-                {
-                    "study": st.study_name,
-                    "kind": kind,
-                    "number": t.number,
-                    "state": t.state.name,
-                    "value": t.value,
-                    "constraint": (t.constraints or {}).get("margin"),
-                    "source": t.user_attrs.get("source", "search"),
-                    "tiers": t.user_attrs.get("tiers"),
-                    "plan_text": t.user_attrs.get("plan_text"),
-                    "pos_rms_mm": sc.get("pos_rms_mm"),
-                    "rot_rms_deg": sc.get("rot_rms_deg"),
-                    "margin": sc.get("margin"),
-                    "steps": t.user_attrs.get("steps"),
-                    "reason": t.user_attrs.get("reason"),
-                }
+    for s, d in result.seeded_scores:
+        if s.source == "hand" and not d.get("feasible"):
+            out.print(
+                f"[yellow]hand plan '{escape(s.plan.label)}' did not make the ranking: "
+                f"{escape(str(d.get('reason')))}[/]"
             )
-    write_atomic(
-        out_dir / "trials.csv",
-        csv_text(trial_rows, list(trial_rows[0]) if trial_rows else ["study"]),
+    if not result.plan_entries:
+        out.print("[red]no feasible plan was found[/]: widen the gain ranges or give more trials")
+    return result
+
+
+def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
+    from .runs import RunSettings
+
+    budgets = _budgets(args, prob)
+    objectives = _objectives(args.objectives)
+    if budgets is None or objectives is None:
+        return None
+    trials, btrials, seed = budgets
+    return RunSettings(
+        storage=args.storage
+        or storage_default
+        or str(Path("results") / prob.name / "studies.journal"),
+        study=args.study,
+        trials=trials,
+        baseline_trials=btrials,
+        seed=seed,
+        workers=args.workers,
+        prune=not args.no_prune,
+        top=args.top,
+        objectives=objectives,
     )
-    best = next((e for e in ranked if e["kind"] == "plan"), None)
-    if best and best.get("plan_toml"):
-        write_atomic(
-            out_dir / "best-plan.toml",
-            f"# best plan of study '{args.study}' on {prob.name} (simulation only)\n"
-            + best["plan_toml"].replace('label = "', 'label = "best: ', 1),
+
+
+def _search(args: argparse.Namespace) -> int:
+    from .plan import load_plan
+    from .report import SAFETY_SHORT, console
+    from .runs import Seeded, run_record, write_run
+
+    prob = _load(args.problem)
+    settings = _settings(args, prob)
+    if settings is None:
+        return EXIT_INPUT
+    seeded = [Seeded(load_plan(p, prob.arm.joint_names), "hand") for p in args.plan]
+    out_dir = args.out or Path("results") / prob.name / args.study
+    out = console()
+    for w in prob.warnings:
+        out.print(f"[yellow]warning:[/] {w}")
+    result = _run_and_show(out, prob, settings, seeded)
+    names = write_run(out_dir, prob, result, run_record(prob, settings, result))
+    out.print(f"search took {result.elapsed_s:.0f} s; wrote {out_dir}/ ({', '.join(names)})")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    return EXIT_OK
+
+
+def _swap(args: argparse.Namespace) -> int:
+    import hashlib
+    import json
+
+    from rich.markup import escape
+
+    from .problem import load_problem
+    from .report import SAFETY_SHORT, console, fmt, swap_table, tier_moves
+    from .runs import previous_plans, run_record, tier_depth, write_run
+
+    from_dir: Path = args.from_dir
+    if not from_dir.is_dir():
+        print(
+            f"tierplan: error: {from_dir}: --from needs a search's results folder", file=sys.stderr
         )
-    run = {
-        "problem": str(args.problem),
-        "problem_name": prob.name,
-        "problem_sha256": prob.digest,
-        "study": args.study,
-        "storage": storage,
-        "seed": seed,
-        "workers": args.workers,
-        "trials": trials,
-        "baseline_trials": btrials,
-        "pruning": not args.no_prune,
-        "elapsed_s": round(elapsed, 2),
-        "command": sys.argv,
-        "versions": {
-            "tierplan": __version__,
-            "optuna": optuna.__version__,
-            "pinocchio": pinocchio.__version__,
-            "numpy": np.__version__,
-            "scipy": scipy.__version__,
-            "python": platform.python_version(),
-        },
-    }
-    write_atomic(out_dir / "run.json", json.dumps(run, indent=2) + "\n")
+        return EXIT_INPUT
+    prob = load_problem(args.problem, actuator_files=args.actuators)
+    old_run: dict = {}
+    if (from_dir / "run.json").is_file():
+        try:
+            old_run = json.loads((from_dir / "run.json").read_text())
+        except ValueError as err:
+            raise InputError(from_dir / "run.json", "", f"is not JSON: {err}") from err
+    old_study = str(old_run.get("study") or from_dir.name)
+    if args.study is None:
+        tag = hashlib.sha256(b"".join(a.read_bytes() for a in args.actuators)).hexdigest()[:6]
+        args.study = f"{old_study}.swap-{args.actuators[-1].stem}-{tag}"
+    if args.trials is None and old_run.get("trials"):
+        args.trials = int(old_run["trials"])
+    if args.baseline_trials is None and old_run.get("baseline_trials"):
+        args.baseline_trials = int(old_run["baseline_trials"])
+    if args.seed is None and old_run.get("seed") is not None:
+        args.seed = int(old_run["seed"])
+    settings = _settings(args, prob, storage_default=old_run.get("storage"))
+    if settings is None:
+        return EXIT_INPUT
+    seeded = previous_plans(from_dir, prob, args.top)
+    if not seeded:
+        raise InputError(from_dir, "", "holds no ranked plan to carry over (plans/rank-NN.toml)")
+    out_dir = args.out or Path("results") / prob.name / args.study
+    if out_dir.resolve() == from_dir.resolve():
+        print(
+            "tierplan: error: --out must differ from --from (the old run is kept)", file=sys.stderr
+        )
+        return EXIT_INPUT
+    out = console()
+    for w in prob.warnings:
+        out.print(f"[yellow]warning:[/] {w}")
+    names = prob.arm.joint_names
+    changed = ", ".join(
+        f"{a.joint} {a.model.bandwidth_hz():.3g} Hz"
+        for a in prob.actuators
+        if a.joint in prob.swapped_joints
+    )
     out.print(
-        f"search took {elapsed:.0f} s; wrote {out_dir}/ (ranking.csv, ranking.json, trials.csv, "
-        f"{'best-plan.toml, ' if best else ''}run.json)"
+        f"swap: {escape(changed)} (from {', '.join(str(a) for a in args.actuators)}); "
+        f"{len(seeded)} plans of {from_dir} re-scored and enqueued in study '{args.study}'"
+    )
+    result = _run_and_show(out, prob, settings, seeded)
+    rows = [
+        (s.plan.label, s.plan.compact(prob.arm.n), s.extra.get("previous_error_index"), d)
+        for s, d in result.seeded_scores
+    ]
+    out.print(swap_table(rows))
+    old_best = seeded[0]
+    new_best = next((e for e in result.ranked if e["kind"] == "plan"), None)
+    moves: list[str] = []
+    summary: dict = {"from": str(from_dir), "actuator_files": [str(a) for a in args.actuators]}
+    before = old_best.extra.get("previous_error_index")
+    if new_best is not None:
+        moves = tier_moves(
+            tier_depth(old_best.plan.to_toml(), names), tier_depth(new_best["plan_toml"], names)
+        )
+        out.print(
+            f"best plan before: {escape(old_best.plan.compact(prob.arm.n))} "
+            f"(error idx {fmt(before)})"
+        )
+        out.print(
+            f"best plan now:    {escape(new_best['plan_text'])} "
+            f"(error idx {fmt(new_best['error_index'])}"
+            + (f", {(new_best['error_index'] / before - 1) * 100:+.0f} %" if before else "")
+            + ")"
+        )
+        out.print("joints that moved between tiers: " + ("; ".join(moves) if moves else "none"))
+        summary.update(
+            best_before=before,
+            best_now=new_best["error_index"],
+            best_plan_before=old_best.plan.compact(prob.arm.n),
+            best_plan_now=new_best["plan_text"],
+            moved=moves,
+        )
+    summary["previous_plans"] = [
+        {"label": lab, "plan_text": txt, "error_index_before": b, "now": d}
+        for lab, txt, b, d in rows
+    ]
+    names_written = write_run(
+        out_dir, prob, result, run_record(prob, settings, result, swap=summary)
+    )
+    out.print(
+        f"swap search took {result.elapsed_s:.0f} s; wrote {out_dir}/ ({', '.join(names_written)})"
     )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     return EXIT_OK

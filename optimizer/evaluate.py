@@ -202,12 +202,12 @@ def _score(
     problem: Problem, controller: Controller, label: str, plan_text: str, per: list[TrajectoryScore]
 ) -> Score:
     s = problem.scoring
-    reason = next((f"{t.name}: {t.reason}" for t in per if t.diverged), None)
+    reason = next((f"on {t.name!r}: {t.reason}" for t in per if t.diverged), None)
     margins = [t.margin for t in per if not math.isnan(t.margin)]
     margin = min(margins) if margins else math.nan
     if reason is None and margins and margin < s.min_margin:
         worst = min(per, key=lambda t: t.margin if not math.isnan(t.margin) else math.inf)
-        reason = f"{worst.name}: stability margin {margin:.4f} below {s.min_margin:g}"
+        reason = f"on {worst.name!r}: stability margin {margin:.4f} below {s.min_margin:g}"
     if reason is None and len(per) < len(problem.references):
         reason = "not all trajectories were run"
     ats = [t.metrics.path_at_mm for t in per if t.metrics.path_at_mm is not None]

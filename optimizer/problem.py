@@ -6,6 +6,7 @@ Loading validates everything and raises ``ProblemError(file, key, reason)``.
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import hashlib
 import logging
@@ -174,6 +175,10 @@ class Problem:
     """SHA-256 of the problem file and the URDF (reproducibility)."""
     warnings: tuple[str, ...] = ()
     """Things the user should know (rounded delays, ...)."""
+    actuator_files: tuple[Path, ...] = ()
+    """Actuator files applied over the problem file's own settings (``swap``), in order."""
+    swapped_joints: tuple[str, ...] = ()
+    """Joints whose settings those files changed."""
 
     @property
     def dt(self) -> float:
@@ -181,11 +186,90 @@ class Problem:
         return self.control.dt
 
 
-def load_problem(path: Path | str, check_reach: bool = True) -> Problem:
-    """Read, validate and build a problem file."""
+def load_problem(
+    path: Path | str, check_reach: bool = True, actuator_files: Sequence[Path | str] = ()
+) -> Problem:
+    """Read, validate and build a problem file.
+
+    ``actuator_files`` (applied in order) replace joints' actuator settings: see
+    ``apply_actuator_file``. The digest then covers those files too.
+    """
     path = Path(path)
     data = load_toml(path, ProblemError)
-    return parse_problem(data, path, check_reach=check_reach)
+    extra = b""
+    swapped: list[tuple[Path, tuple[str, ...]]] = []
+    for af in actuator_files:
+        data, joints = apply_actuator_file(data, Path(af), path)
+        swapped.append((Path(af), joints))
+        extra += Path(af).read_bytes()
+    prob = _parse_blaming(data, path, check_reach, swapped)
+    if swapped:
+        prob = dataclasses.replace(
+            prob,
+            digest=hashlib.sha256(prob.digest.encode() + extra).hexdigest(),
+            actuator_files=tuple(af for af, _ in swapped),
+            swapped_joints=tuple(dict.fromkeys(j for _, js in swapped for j in js)),
+        )
+    return prob
+
+
+def _parse_blaming(
+    data: dict[str, Any],
+    path: Path,
+    check_reach: bool,
+    swapped: Sequence[tuple[Path, tuple[str, ...]]],
+) -> Problem:
+    """parse_problem; an error in a swapped joint's settings names the actuator file."""
+    try:
+        return parse_problem(data, path, check_reach=check_reach)
+    except ProblemError as err:
+        for af, joints in reversed(swapped):
+            if any(
+                err.key == f"actuators.{j}" or err.key.startswith(f"actuators.{j}.") for j in joints
+            ):
+                raise ProblemError(af, err.key, err.reason) from err
+        raise
+
+
+#: Keys that belong to an actuator model's parameters (dropped when ``model`` changes).
+MODEL_KEYS = frozenset(k for _, ks in ACTUATOR_MODELS.values() for k in ks) | {"model"}
+
+
+def apply_actuator_file(
+    data: dict[str, Any], act_path: Path, problem_path: Path
+) -> tuple[dict[str, Any], tuple[str, ...]]:
+    """Problem ``data`` with the ``[actuators.<joint>]`` tables of ``act_path`` applied.
+
+    Each table updates that joint's own settings key by key; a table that names a
+    ``model`` replaces the joint's model and its parameters as a whole (friction,
+    delay, limits and armature not given stay as they were). Returns a new dict;
+    ``data`` is not changed; the second item names the joints changed. Joint names
+    are checked against the URDF when the result is parsed.
+    """
+    new = load_toml(act_path, ProblemError)
+    root = TableReader(new, act_path, "", ProblemError)
+    root.str("description", "")
+    tacts = root.table("actuators", required=True)
+    root.done()
+    if not tacts.data:
+        raise ProblemError(act_path, "actuators", "names no joint: add [actuators.<joint>] tables")
+    out = copy.deepcopy(data)
+    acts = out.setdefault("actuators", {})
+    if not isinstance(acts, dict):
+        raise ProblemError(problem_path, "actuators", "must be a table")
+    for joint, table in tacts.data.items():
+        if not isinstance(table, dict):
+            raise ProblemError(act_path, f"actuators.{joint}", "must be a table")
+        if joint == "default":
+            raise ProblemError(
+                act_path, "actuators.default", "an actuator file changes named joints only"
+            )
+        own = dict(acts.get(joint, {})) if isinstance(acts.get(joint), dict) else {}
+        if "model" in table:
+            own = {k: v for k, v in own.items() if k not in MODEL_KEYS}
+        own.update(table)
+        acts[joint] = own
+    return out, tuple(tacts.data)
 
 
 def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) -> Problem:
@@ -245,9 +329,11 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
                 "(or an [actuators.default] table)",
             )
         own = tacts.data.get(jname, {})
-        merged = dict(default.data) if default is not None else {}
         if not isinstance(own, dict):
             raise ProblemError(path, f"actuators.{jname}", "must be a table")
+        merged = dict(default.data) if default is not None else {}
+        if "model" in own:  # a joint's own model does not inherit the default's parameters
+            merged = {k: v for k, v in merged.items() if k not in MODEL_KEYS}
         merged.update(own)
         tj = TableReader(merged, path, f"actuators.{jname}.", ProblemError)
         tacts.seen.add(jname)

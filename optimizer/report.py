@@ -197,6 +197,7 @@ def change(value: float | None, ref: float | None) -> str:
 def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) -> Table:
     """The ranked search result: plans, hand plans and tuned baselines together."""
     t = Table(title="ranking (feasible candidates; lower error index is better)")
+    front = any("pareto" in e for e in ranked)
     cols = (
         "rank",
         "entry",
@@ -204,11 +205,12 @@ def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) 
         "pos RMS mm",
         "rot RMS deg",
         "margin",
+        "τ RMS N·m",
         "peak τ/lim",
         "error idx",
         "vs tuned OSC",
         "vs tuned joint",
-    )
+    ) + (("Pareto",) if front else ())
     for c in cols:
         t.add_column(c, justify="left" if c == "entry" else "right")
     ro = osc["error_index"] if osc else None
@@ -222,13 +224,43 @@ def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) 
             fmt(e["pos_rms_mm"]),
             fmt(e["rot_rms_deg"]),
             fmt(e["margin"], 2),
+            fmt(e["tau_rms_nm"]),
             fmt(e["peak_torque_ratio"]),
             fmt(e["error_index"]),
             change(e["error_index"], ro),
             change(e["error_index"], rj),
+            *(("yes" if e.get("pareto") else "",) if front else ()),
             style=style,
         )
     return t
+
+
+def swap_table(rows: Sequence[tuple[str, str, float | None, dict]]) -> Table:
+    """A previous run's plans re-scored after a swap: (label, plan text, old error, new score)."""
+    t = Table(title="previous plans under the new actuators")
+    for c in ("entry", "error idx before", "error idx now", "change", "margin now", "feasible now"):
+        t.add_column(c, justify="left" if c == "entry" else "right")
+    for label, _text, before, d in rows:
+        now = d.get("error_index") if d.get("feasible") else None
+        t.add_row(
+            escape(label),
+            fmt(before),
+            fmt(now),
+            change(now, before),
+            fmt(d.get("margin"), 2),
+            "yes" if d.get("feasible") else escape(f"no: {d.get('reason') or '?'}"),
+        )
+    return t
+
+
+def tier_moves(before: dict[str, int], after: dict[str, int]) -> list[str]:
+    """Lines naming the joints whose tier count changed between two plans."""
+    lines = []
+    for j in after:
+        a, b = before.get(j, 0), after[j]
+        if a != b:
+            lines.append(f"{j}: in {a} tier{'s' if a != 1 else ''} before, {b} now")
+    return lines
 
 
 def csv_text(rows: Sequence[dict], columns: Sequence[str]) -> str:

@@ -9,6 +9,7 @@ steer the sampler instead of vanishing. No printing here: callers pass callbacks
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import math
 import multiprocessing
@@ -33,6 +34,7 @@ from .evaluate import (
     make_loop,
     plan_controller,
 )
+from .exceptions import InputError
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
 from .stability import home_margin
@@ -43,6 +45,29 @@ log = logging.getLogger(__name__)
 PENALTY = 1e6
 #: Study kinds and the suffix of their study names.
 KINDS = {"plan": "", "osc": ".osc", "joint_space": ".joint"}
+#: Second objectives of the two-objective mode: optuna direction and what is measured.
+SECOND_OBJECTIVES = {
+    "margin": ("maximize", "stability margin, 1 − spectral radius [-]"),
+    "effort": ("minimize", "RMS commanded torque over the set [N·m]"),
+}
+
+
+def directions(objectives: Sequence[str]) -> list[str]:
+    """Optuna directions of ``("error",)`` or ``("error", <second>)``."""
+    return ["minimize"] + [SECOND_OBJECTIVES[o][0] for o in objectives[1:]]
+
+
+def _values(
+    objectives: Sequence[str], error: float, score: Any | None
+) -> float | tuple[float, float]:
+    """The trial's return value: the error, or (error, second objective)."""
+    if len(objectives) == 1:
+        return error
+    if objectives[1] == "margin":
+        m = score.margin if score is not None else math.nan
+        return error, (m if math.isfinite(m) else -1.0)
+    e = score.tau_rms_nm if score is not None else math.nan
+    return error, (e if math.isfinite(e) else PENALTY)
 
 
 def quiet_optuna() -> None:
@@ -120,9 +145,14 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
     if len(plan.tiers) > sp.max_tiers or plan.tiers[0].joints != tuple(range(n)):
         return None
     t1 = plan.tiers[0]
+    r_t1 = (sp.tier1_kp_t_range or sp.kp_t_range, sp.tier1_kp_r_range or sp.kp_r_range)
+    if not (_inside(t1.kp_t, r_t1[0]) and _inside(t1.kp_r, r_t1[1])):
+        return None
     params: dict[str, Any] = {"t1_kp_t": t1.kp_t, "t1_kp_r": t1.kp_r, "t1_zeta": t1.zeta}
     if sp.max_tiers > 1:
         params["tiers"] = len(plan.tiers)
+    if not all(_inside(t.zeta, sp.zeta_range) and t.damping is None for t in plan.tiers):
+        return None
     prev = list(range(n))
     for k, tier in enumerate(plan.tiers[1:], start=2):
         if not set(tier.joints) < set(prev):
@@ -144,6 +174,10 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
             return None
         if sp.tier_parts:
             params[f"t{k}_part"] = part
+        if (tier.kp_t > 0 and not _inside(tier.kp_t, sp.kp_t_range)) or (
+            tier.kp_r > 0 and not _inside(tier.kp_r, sp.kp_r_range)
+        ):
+            return None
         if tier.kp_t > 0:
             params[f"t{k}_kp_t"] = tier.kp_t
         if tier.kp_r > 0:
@@ -151,6 +185,28 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
         params[f"t{k}_zeta"] = tier.zeta
         prev = list(tier.joints)
     return params
+
+
+def _inside(x: float, r: tuple[float, float]) -> bool:
+    return r[0] * (1 - 1e-12) <= x <= r[1] * (1 + 1e-12)
+
+
+def clip_to_space(plan: Plan, problem: Problem) -> Plan:
+    """``plan`` with each tier's gains and ζ clipped into the search ranges."""
+    sp = problem.search
+    tiers = []
+    for k, t in enumerate(plan.tiers):
+        rt = (sp.tier1_kp_t_range or sp.kp_t_range) if k == 0 else sp.kp_t_range
+        rr = (sp.tier1_kp_r_range or sp.kp_r_range) if k == 0 else sp.kp_r_range
+        tiers.append(
+            dataclasses.replace(
+                t,
+                kp_t=float(np.clip(t.kp_t, *rt)) if t.kp_t > 0 or k == 0 else 0.0,
+                kp_r=float(np.clip(t.kp_r, *rr)) if t.kp_r > 0 or k == 0 else 0.0,
+                zeta=float(np.clip(t.zeta, *sp.zeta_range)),
+            )
+        )
+    return dataclasses.replace(plan, tiers=tuple(tiers))
 
 
 def _never_alone(plan: Plan, problem: Problem) -> str | None:
@@ -169,8 +225,8 @@ def _run_candidate(
     label: str,
     text: str,
     prune: bool,
-) -> float:
-    """Pre-check, rollouts with pruning, constraint; returns the objective."""
+) -> tuple[float, Any | None]:
+    """Pre-check, rollouts with pruning, constraint; returns the error and the score."""
     min_margin = problem.scoring.min_margin
     trial.set_user_attr("plan_text", text)
     trial.set_user_attr("kind", controller.kind)
@@ -180,7 +236,7 @@ def _run_candidate(
         trial.set_user_attr("reason", f"pre-check: stability margin at home {m0:.4g}")
         trial.set_user_attr("steps", 0)
         trial.set_constraint("margin", (min_margin - m0) if math.isfinite(m0) else 1.0)
-        return PENALTY
+        return PENALTY, None
 
     def on_trajectory(i: int, running: float) -> None:
         if not prune or not math.isfinite(running):
@@ -199,15 +255,27 @@ def _run_candidate(
     diverged = any(t.diverged for t in score.trajectories)
     c = (min_margin - score.margin) if math.isfinite(score.margin) else 1.0
     trial.set_constraint("margin", max(c, 1.0) if diverged else c)
-    return score.error_index if math.isfinite(score.error_index) else PENALTY
+    return (score.error_index if math.isfinite(score.error_index) else PENALTY), score
 
 
-def objective(problem: Problem, kind: str, prune: bool) -> Callable[[optuna.trial.Trial], float]:
-    """The objective of one study kind (``plan``, ``osc`` or ``joint_space``)."""
+def objective(
+    problem: Problem, kind: str, prune: bool, objectives: Sequence[str] = ("error",)
+) -> Callable[[optuna.trial.Trial], float | tuple[float, float]]:
+    """The objective of one study kind (``plan``, ``osc`` or ``joint_space``).
+
+    With two objectives the trial returns (error, margin or effort) and is never pruned
+    (optuna prunes single-objective studies only).
+    """
     sp = problem.search
     n = problem.arm.n
+    prune = prune and len(objectives) == 1
 
-    def plan_objective(trial: optuna.trial.Trial) -> float:
+    def run(
+        trial: optuna.trial.Trial, controller: Controller, label: str, text: str
+    ) -> float | tuple[float, float]:
+        return _values(objectives, *_run_candidate(trial, problem, controller, label, text, prune))
+
+    def plan_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         plan = suggest_plan(trial, problem)
         trial.set_user_attr("plan_toml", plan.to_toml())
         trial.set_user_attr("tiers", len(plan.tiers))
@@ -215,12 +283,10 @@ def objective(problem: Problem, kind: str, prune: bool) -> Callable[[optuna.tria
         if rule:
             trial.set_user_attr("reason", rule)
             trial.set_constraint("margin", 1.0)
-            return PENALTY
-        return _run_candidate(
-            trial, problem, plan_controller(problem, plan), plan.label, plan.compact(n), prune
-        )
+            return _values(objectives, PENALTY, None)
+        return run(trial, plan_controller(problem, plan), plan.label, plan.compact(n))
 
-    def osc_objective(trial: optuna.trial.Trial) -> float:
+    def osc_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         plan = Plan(
             (
                 Tier(
@@ -235,16 +301,9 @@ def objective(problem: Problem, kind: str, prune: bool) -> Callable[[optuna.tria
         )
         trial.set_user_attr("plan_toml", plan.to_toml())
         trial.set_user_attr("tiers", 1)
-        return _run_candidate(
-            trial,
-            problem,
-            plan_controller(problem, plan, kind="osc"),
-            plan.label,
-            plan.compact(n),
-            prune,
-        )
+        return run(trial, plan_controller(problem, plan, kind="osc"), plan.label, plan.compact(n))
 
-    def joint_objective(trial: optuna.trial.Trial) -> float:
+    def joint_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         names = problem.arm.joint_names
         kp = np.array(
             [trial.suggest_float(f"kp_{nm}", *sp.joint_kp_range, log=True) for nm in names]
@@ -252,7 +311,7 @@ def objective(problem: Problem, kind: str, prune: bool) -> Callable[[optuna.tria
         zeta = trial.suggest_float("zeta", *sp.zeta_range)
         ctrl = joint_controller(problem, kp, zeta, label="tuned joint-space CLIK + PD")
         trial.set_user_attr("tiers", 1)
-        return _run_candidate(trial, problem, ctrl, ctrl.label, joint_gains_text(kp, zeta), prune)
+        return run(trial, ctrl, ctrl.label, joint_gains_text(kp, zeta))
 
     return {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
 
@@ -272,23 +331,42 @@ def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
 
 
 def open_study(
-    storage: str, name: str, seed: int, prune: bool, directions: Sequence[str] | None = None
+    storage: str, name: str, seed: int, prune: bool, objectives: Sequence[str] = ("error",)
 ) -> optuna.Study:
-    """Create or load a study (resume with the same name)."""
+    """Create or load a study (resume with the same name).
+
+    Raises InputError when the stored study has other objectives than asked for.
+    """
     quiet_optuna()
     pruner = (
         optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
-        if prune
+        if prune and len(objectives) == 1
         else optuna.pruners.NopPruner()
     )
-    return optuna.create_study(
-        study_name=name,
-        storage=open_storage(storage),
-        sampler=make_sampler(seed),
-        pruner=pruner,
-        load_if_exists=True,
-        directions=list(directions) if directions else None,  # type: ignore[arg-type]
-    )
+    want = directions(objectives)
+    st = open_storage(storage)
+    try:
+        study = optuna.load_study(
+            study_name=name, storage=st, sampler=make_sampler(seed), pruner=pruner
+        )
+    except KeyError:
+        return optuna.create_study(
+            study_name=name,
+            storage=st,
+            sampler=make_sampler(seed),
+            pruner=pruner,
+            directions=want,  # type: ignore[arg-type]
+            load_if_exists=True,  # another worker may have made it meanwhile
+        )
+    have = [d.name.lower() for d in study.directions]
+    if have != want:
+        raise InputError(
+            storage,
+            "--objectives",
+            f"study '{name}' was made with {len(have)} objective(s) ({', '.join(have)}); "
+            f"use another --study name for {', '.join(objectives)}",
+        )
+    return study
 
 
 def finished(study: optuna.Study) -> int:
@@ -308,15 +386,17 @@ class WorkerJob:
     n_trials: int
     seed: int
     prune: bool
+    objectives: tuple[str, ...] = ("error",)
+    actuator_files: tuple[str, ...] = ()
 
 
 def run_worker(job: WorkerJob) -> int:
     """Run ``job.n_trials`` trials of one study in this process; returns trials run."""
     quiet_optuna()
-    problem = load_problem(job.problem_path, check_reach=False)
-    study = open_study(job.storage, job.study_name, job.seed, job.prune)
+    problem = load_problem(job.problem_path, check_reach=False, actuator_files=job.actuator_files)
+    study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives)
     study.optimize(
-        objective(problem, job.kind, job.prune),
+        objective(problem, job.kind, job.prune, job.objectives),
         n_trials=job.n_trials,
         catch=(ArithmeticError, ValueError, np.linalg.LinAlgError),
     )
@@ -334,6 +414,7 @@ def run_search(
     prune: bool = True,
     enqueue: Sequence[tuple[dict[str, Any], dict[str, Any]]] = (),
     on_progress: Callable[[optuna.Study], None] | None = None,
+    objectives: Sequence[str] = ("error",),
 ) -> optuna.Study:
     """Bring study ``study_name`` up to ``total_trials`` ended trials.
 
@@ -341,8 +422,10 @@ def run_search(
     holds (params, user_attrs) pairs (hand plans) evaluated first, once. With
     ``workers`` > 1 the trials are split over that many processes sharing the storage,
     each with its own sampler seed; ``on_progress`` is called about once a second.
+    ``objectives`` is ``("error",)`` or ``("error", "margin" | "effort")``.
     """
-    study = open_study(storage, study_name, seed, prune)
+    objectives = tuple(objectives)
+    study = open_study(storage, study_name, seed, prune, objectives)
     for params, attrs in enqueue:
         study.enqueue_trial(params, user_attrs=attrs, skip_if_exists=True)
     remaining = max(0, total_trials - finished(study))
@@ -353,7 +436,7 @@ def run_search(
     if workers <= 1:
         cb = [(lambda s, t: on_progress(s))] if on_progress else []
         study.optimize(
-            objective(problem, kind, prune),
+            objective(problem, kind, prune, objectives),
             n_trials=remaining,
             callbacks=cb,
             catch=(ArithmeticError, ValueError, np.linalg.LinAlgError),
@@ -361,7 +444,17 @@ def run_search(
         return study
     shares = [remaining // workers + (1 if i < remaining % workers else 0) for i in range(workers)]
     jobs = [
-        WorkerJob(str(problem.path), storage, study_name, kind, s, seed + 1000 * i, prune)
+        WorkerJob(
+            str(problem.path),
+            storage,
+            study_name,
+            kind,
+            s,
+            seed + 1000 * i,
+            prune,
+            objectives,
+            tuple(str(a) for a in problem.actuator_files),
+        )
         for i, s in enumerate(shares)
         if s > 0
     ]
@@ -391,13 +484,38 @@ def feasible(t: optuna.trial.FrozenTrial) -> bool:
     )
 
 
-def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
-    """Feasible trials as ranking entries (the score dict plus trial, source, plan)."""
+def pareto_front(points: Sequence[Sequence[float]], dirs: Sequence[str]) -> list[bool]:
+    """Whether each point is non-dominated under ``dirs`` (``minimize``/``maximize``)."""
+    sign = np.array([1.0 if d == "minimize" else -1.0 for d in dirs])
+    p = np.asarray(points, dtype=float).reshape(len(points), len(dirs)) * sign
     out = []
-    for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,)):
-        if not feasible(t):
-            continue
+    for i in range(len(p)):
+        dominated = np.all(p <= p[i], axis=1) & np.any(p < p[i], axis=1)
+        out.append(not bool(dominated.any()))
+    return out
+
+
+def best_value(study: optuna.Study) -> float | None:
+    """Lowest error among feasible trials, or None."""
+    vals = [t.values[0] for t in study.get_trials(deepcopy=False) if feasible(t)]
+    return min(vals, default=None)
+
+
+def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
+    """Feasible trials as ranking entries (the score dict plus trial, source, plan).
+
+    In a two-objective study each entry also has ``pareto`` (on the feasible front).
+    """
+    out = []
+    trials = [
+        t for t in study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,)) if feasible(t)
+    ]
+    dirs = [d.name.lower() for d in study.directions]
+    front = pareto_front([t.values for t in trials], dirs) if len(dirs) > 1 else []
+    for i, t in enumerate(trials):
         e = dict(t.user_attrs["score"])
+        if front:
+            e["pareto"] = front[i]
         e["trial"] = t.number
         e["source"] = t.user_attrs.get("source", source)
         if t.user_attrs.get("label"):
@@ -410,7 +528,12 @@ def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
 def rank(
     plan_entries: list[dict[str, Any]], baselines: list[dict[str, Any]], top: int
 ) -> list[dict[str, Any]]:
-    """Top ``top`` plans plus every hand plan and the tuned baselines, ranked by error."""
-    keep = plan_entries[:top] + [e for e in plan_entries[top:] if e["source"] == "hand"]
+    """Top ``top`` plans, every hand or previous plan, the Pareto front and the baselines.
+
+    Ranked by error.
+    """
+    keep = plan_entries[:top] + [
+        e for e in plan_entries[top:] if e["source"] in ("hand", "previous") or e.get("pareto")
+    ]
     allr = sorted(keep + baselines, key=lambda e: e["error_index"])
     return [{"rank": i + 1, **e} for i, e in enumerate(allr)]

@@ -11,6 +11,7 @@ from problems import PLANAR, PLANAR_PLANS
 from optimizer import search as srch
 from optimizer.cli import main
 from optimizer.evaluate import score_plan
+from optimizer.exceptions import InputError
 from optimizer.plan import load_plan
 
 
@@ -114,3 +115,37 @@ def test_search_beats_tuned_single_tier_osc_on_the_planar_arm(
     assert again.error_index == pytest.approx(best["error_index"], rel=1e-12)
     assert again.pos_rms_mm == pytest.approx(best["pos_rms_mm"], rel=1e-12)
     assert "Simulation only" in capsys.readouterr().out
+
+
+def test_pareto_front_of_known_points() -> None:
+    """Non-dominated points under (minimize, maximize); a duplicate stays on the front."""
+    pts = [(1.0, 0.1), (2.0, 0.3), (1.5, 0.05), (3.0, 0.3), (1.0, 0.1)]
+    assert srch.pareto_front(pts, ["minimize", "maximize"]) == [True, True, False, False, True]
+    assert srch.pareto_front(pts, ["minimize", "minimize"]) == [True, False, True, False, True]
+
+
+@pytest.mark.parametrize("second", ["margin", "effort"])
+def test_two_objective_study_has_a_feasible_front(planar, tmp_path, second) -> None:
+    """error + margin/effort: two values per trial, no pruning, constraints kept, front marked."""
+    study = srch.run_search(
+        planar, str(tmp_path / "m.journal"), "m", "plan", 10, seed=4, objectives=("error", second)
+    )
+    assert [d.name.lower() for d in study.directions] == srch.directions(("error", second))
+    trials = study.get_trials()
+    assert len(trials) == 10
+    assert all(t.state.name == "COMPLETE" and len(t.values) == 2 for t in trials)
+    assert all("margin" in t.constraints for t in trials)
+    es = srch.entries(study, "search")
+    assert es and any(e["pareto"] for e in es)
+    key = "margin" if second == "margin" else "tau_rms_nm"
+    sign = -1.0 if second == "margin" else 1.0
+    front = [e for e in es if e["pareto"]]
+    for f in front:  # nothing feasible is at least as good in both and better in one
+        assert not any(
+            e["error_index"] <= f["error_index"]
+            and sign * e[key] <= sign * f[key]
+            and (e["error_index"] < f["error_index"] or sign * e[key] < sign * f[key])
+            for e in es
+        )
+    with pytest.raises(InputError, match="another --study"):
+        srch.run_search(planar, str(tmp_path / "m.journal"), "m", "plan", 11, seed=4)

@@ -1,0 +1,372 @@
+"""A search run: the plan study and both tuned-baseline studies, the ranking, the files.
+
+``search`` and ``swap`` both go through ``run_studies`` and ``write_run``. No printing:
+progress goes through a callback; the caller shows the results.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import platform
+import sys
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import optuna
+
+from . import __version__
+from . import search as srch
+from .evaluate import score_plan
+from .plan import Plan, load_plan, parse_plan
+from .problem import Problem
+from .report import csv_text, write_atomic
+from .tomlio import tomllib
+
+#: Columns of ranking.csv.
+RANKING_COLUMNS = [
+    "rank",
+    "label",
+    "kind",
+    "source",
+    "trial",
+    "tiers",
+    "plan_text",
+    "pos_rms_mm",
+    "rot_rms_deg",
+    "pos_max_mm",
+    "rot_max_deg",
+    "margin",
+    "peak_torque_ratio",
+    "tau_rms_nm",
+    "error_index",
+    "vs_tuned_osc",
+    "vs_tuned_joint",
+    "pareto",
+    "feasible",
+]
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """What one search run asks for."""
+
+    storage: str
+    """Optuna storage URL or journal file."""
+    study: str
+    """Plan study name; the baselines use ``<study>.osc`` and ``<study>.joint``."""
+    trials: int
+    """Ended trials the plan study is brought up to."""
+    baseline_trials: int
+    """Ended trials each baseline study is brought up to."""
+    seed: int
+    """Sampler seed (worker i adds 1000·i)."""
+    workers: int = 1
+    """Worker processes."""
+    prune: bool = True
+    """Median pruning after each trajectory (single objective only)."""
+    top: int = 10
+    """Optimised plans kept in the ranking (hand and previous plans are always kept)."""
+    objectives: tuple[str, ...] = ("error",)
+    """``("error",)`` or ``("error", "margin" | "effort")`` for the plan study."""
+
+
+@dataclass(frozen=True)
+class Seeded:
+    """A plan evaluated first in the plan study (hand plan or a previous run's plan)."""
+
+    plan: Plan
+    """The plan."""
+    source: str
+    """``hand`` or ``previous``."""
+    extra: dict[str, Any] = field(default_factory=dict)
+    """More user attributes (``previous_rank``...)."""
+
+
+@dataclass
+class RunResult:
+    """What a run produced."""
+
+    studies: dict[str, optuna.Study]
+    """By kind: ``plan``, ``osc``, ``joint_space``."""
+    ranked: list[dict[str, Any]]
+    """Ranking entries (score dict plus rank, source, plan_toml...), best first."""
+    plan_entries: list[dict[str, Any]]
+    """Every feasible plan entry, best first (the ranking keeps the top ones)."""
+    osc: dict[str, Any] | None
+    """Best tuned single-tier OSC entry."""
+    joint: dict[str, Any] | None
+    """Best tuned joint-space entry."""
+    seeded_scores: list[tuple[Seeded, dict[str, Any]]]
+    """Each seeded plan with its score dict under this problem (feasible or not)."""
+    elapsed_s: float
+    """Wall time of the studies [s]."""
+
+
+def run_studies(
+    problem: Problem,
+    settings: RunSettings,
+    seeded: Sequence[Seeded] = (),
+    on_progress: Callable[[str, int, optuna.Study], None] | None = None,
+) -> RunResult:
+    """Bring the three studies up to their budgets (resuming) and rank the results.
+
+    Seeded plans the search space can express are enqueued as trials (once, even over
+    a resume); the others are scored as they are. ``on_progress(kind, total, study)``
+    is called about once a second while a study runs, and once when it ends.
+    """
+    enqueue, direct = [], []
+    for s in seeded:
+        params = srch.plan_params(s.plan, problem)
+        if params is None:
+            direct.append(s)
+        else:
+            attrs = {"source": s.source, "label": s.plan.label, **s.extra}
+            enqueue.append((params, attrs))
+    t0 = time.perf_counter()
+    studies: dict[str, optuna.Study] = {}
+    runs = [  # baselines first: the plan study starts from the tuned single-tier OSC
+        ("osc", settings.study + ".osc", settings.baseline_trials, settings.objectives[:1]),
+        ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
+        ("plan", settings.study, settings.trials, settings.objectives),
+    ]
+    for kind, name, n, objectives in runs:
+
+        def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
+            if on_progress:
+                on_progress(kind, n, study)
+
+        if kind == "plan":
+            enqueue += _tuned_osc_seed(problem, studies["osc"])
+        studies[kind] = srch.run_search(
+            problem,
+            settings.storage,
+            name,
+            kind,
+            n,
+            settings.seed,
+            settings.workers,
+            prune=settings.prune,
+            enqueue=enqueue if kind == "plan" else (),
+            on_progress=progress,
+            objectives=objectives,
+        )
+        progress(studies[kind])
+    elapsed = time.perf_counter() - t0
+
+    plan_e = srch.entries(studies["plan"], "search")
+    seeded_scores: list[tuple[Seeded, dict[str, Any]]] = []
+    by_label = {
+        t.user_attrs.get("label"): t
+        for t in studies["plan"].get_trials(deepcopy=False)
+        if t.user_attrs.get("source") in ("hand", "previous")
+    }
+    for s in seeded:
+        t = by_label.get(s.plan.label)
+        if s in direct:  # the search space cannot express it: scored as it is
+            d = score_plan(problem, s.plan).to_dict()
+            if d["feasible"]:
+                plan_e.append(
+                    {
+                        **d,
+                        "trial": None,
+                        "source": s.source,
+                        "label": s.plan.label,
+                        "plan_toml": s.plan.to_toml(),
+                        **s.extra,
+                    }
+                )
+        elif t is not None and "score" in t.user_attrs:
+            d = dict(t.user_attrs["score"])
+            if not srch.feasible(t):
+                d["feasible"] = False
+                d["reason"] = d.get("reason") or t.user_attrs.get("reason")
+        else:  # pruned or stopped by the pre-check
+            reason = t.user_attrs.get("reason") if t is not None else None
+            d = {"feasible": False, "reason": reason or "pruned: worse than the median trial"}
+        seeded_scores.append((s, d))
+    plan_e.sort(key=lambda e: e["error_index"])
+    osc_e = srch.entries(studies["osc"], "tuned")
+    joint_e = srch.entries(studies["joint_space"], "tuned")
+    osc, joint = (osc_e[0] if osc_e else None), (joint_e[0] if joint_e else None)
+    ranked = srch.rank(plan_e, [e for e in (osc, joint) if e], settings.top)
+    for e in ranked:
+        e["vs_tuned_osc"] = (e["error_index"] / osc["error_index"] - 1) if osc else None
+        e["vs_tuned_joint"] = (e["error_index"] / joint["error_index"] - 1) if joint else None
+    return RunResult(studies, ranked, plan_e, osc, joint, seeded_scores, elapsed)
+
+
+def _tuned_osc_seed(
+    problem: Problem, osc: optuna.Study
+) -> list[tuple[dict[str, Any], dict[str, Any]]]:
+    """The best tuned single-tier OSC as a one-tier plan trial, so the plan search never
+    starts below it (a trial of the plan budget, source ``tuned-osc``)."""
+    best = srch.entries(osc, "tuned")
+    if not best or not best[0].get("plan_toml"):
+        return []
+    plan = parse_plan(tomllib.loads(best[0]["plan_toml"]), problem.arm.joint_names, "<osc>")
+    params = srch.plan_params(srch.clip_to_space(plan, problem), problem)
+    if params is None:
+        return []
+    return [(params, {"source": "tuned-osc", "label": "from tuned single-tier OSC"})]
+
+
+def trial_rows(studies: dict[str, optuna.Study]) -> list[dict[str, Any]]:
+    """One row per trial of every study (for trials.csv)."""
+    rows = []
+    for kind, st in studies.items():
+        for t in st.get_trials(deepcopy=False):
+            sc = t.user_attrs.get("score", {})
+            rows.append(
+                {
+                    "study": st.study_name,
+                    "kind": kind,
+                    "number": t.number,
+                    "state": t.state.name,
+                    "value": t.values[0] if t.values else None,
+                    "value_2": t.values[1] if t.values and len(t.values) > 1 else None,
+                    "constraint": (t.constraints or {}).get("margin"),
+                    "source": t.user_attrs.get("source", "search"),
+                    "tiers": t.user_attrs.get("tiers"),
+                    "plan_text": t.user_attrs.get("plan_text"),
+                    "pos_rms_mm": sc.get("pos_rms_mm"),
+                    "rot_rms_deg": sc.get("rot_rms_deg"),
+                    "margin": sc.get("margin"),
+                    "steps": t.user_attrs.get("steps"),
+                    "reason": t.user_attrs.get("reason"),
+                }
+            )
+    return rows
+
+
+def run_record(
+    problem: Problem, settings: RunSettings, result: RunResult, **extra: Any
+) -> dict[str, Any]:
+    """The run.json contents: hashes, seeds, budgets, versions, command line."""
+    import numpy as np
+    import pinocchio
+    import scipy
+
+    return {
+        "problem": str(problem.path),
+        "problem_name": problem.name,
+        "problem_sha256": problem.digest,
+        "actuator_files": [str(a) for a in problem.actuator_files],
+        "study": settings.study,
+        "storage": settings.storage,
+        "seed": settings.seed,
+        "workers": settings.workers,
+        "trials": settings.trials,
+        "baseline_trials": settings.baseline_trials,
+        "objectives": list(settings.objectives),
+        "pruning": settings.prune and len(settings.objectives) == 1,
+        "elapsed_s": round(result.elapsed_s, 2),
+        "command": sys.argv,
+        "versions": {
+            "tierplan": __version__,
+            "optuna": optuna.__version__,
+            "pinocchio": pinocchio.__version__,
+            "numpy": np.__version__,
+            "scipy": scipy.__version__,
+            "python": platform.python_version(),
+        },
+        **extra,
+    }
+
+
+def write_run(
+    out_dir: Path, problem: Problem, result: RunResult, record: dict[str, Any]
+) -> list[str]:
+    """Write ranking.json/.csv, trials.csv, best-plan.toml, plans/rank-NN.toml, run.json.
+
+    Each file is written whole or not at all (temporary file and rename). Returns the
+    names written.
+    """
+    ranked = result.ranked
+    write_atomic(
+        out_dir / "ranking.json",
+        json.dumps([{k: v for k, v in e.items() if k != "plan_toml"} for e in ranked], indent=2)
+        + "\n",
+    )
+    write_atomic(out_dir / "ranking.csv", csv_text(ranked, RANKING_COLUMNS))
+    rows = trial_rows(result.studies)
+    write_atomic(out_dir / "trials.csv", csv_text(rows, list(rows[0]) if rows else ["study"]))
+    names = ["ranking.csv", "ranking.json", "trials.csv"]
+    study = record.get("study", "")
+    plan_files = set()
+    for e in ranked:
+        if e.get("plan_toml"):
+            f = out_dir / "plans" / f"rank-{e['rank']:02d}.toml"
+            write_atomic(
+                f,
+                f"# rank {e['rank']} of study '{study}' on {problem.name} (simulation only)\n"
+                + e["plan_toml"],
+            )
+            plan_files.add(f.name)
+    for old in (out_dir / "plans").glob("rank-*.toml"):  # left by an earlier, longer ranking
+        if old.name not in plan_files:
+            old.unlink()
+    if plan_files:
+        names.append("plans/")
+    best = next((e for e in ranked if e["kind"] == "plan"), None)
+    if best and best.get("plan_toml"):
+        write_atomic(
+            out_dir / "best-plan.toml",
+            f"# best plan of study '{study}' on {problem.name} (simulation only)\n"
+            + best["plan_toml"].replace('label = "', 'label = "best: ', 1),
+        )
+        names.append("best-plan.toml")
+    write_atomic(out_dir / "run.json", json.dumps(record, indent=2) + "\n")
+    names.append("run.json")
+    return names
+
+
+def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
+    """The top ``top`` plans of an earlier run (``plans/rank-NN.toml`` and ranking.json).
+
+    Raises InputError (via the loaders) when the folder or its files are unreadable.
+    """
+    from .exceptions import InputError
+
+    ranking_path = run_dir / "ranking.json"
+    try:
+        ranking = json.loads(ranking_path.read_text())
+    except FileNotFoundError as err:
+        raise InputError(
+            ranking_path, "", "no ranking.json here: --from takes a search's results folder"
+        ) from err
+    except (OSError, ValueError) as err:
+        raise InputError(ranking_path, "", f"could not be read: {err}") from err
+    if not isinstance(ranking, list):
+        raise InputError(ranking_path, "", "must hold a list of ranked entries")
+    out: list[Seeded] = []
+    for e in ranking:
+        if not isinstance(e, dict) or e.get("kind") != "plan" or "rank" not in e:
+            continue
+        f = run_dir / "plans" / f"rank-{int(e['rank']):02d}.toml"
+        if not f.is_file():
+            continue
+        plan = load_plan(f, problem.arm.joint_names)
+        plan = dataclasses.replace(plan, label=f"previous #{int(e['rank'])}")
+        extra = {"previous_rank": int(e["rank"]), "previous_error_index": e.get("error_index")}
+        out.append(Seeded(plan, "previous", extra))
+        if len(out) == top:
+            break
+    if not out and (run_dir / "best-plan.toml").is_file():  # a run from before plans/
+        plan = load_plan(run_dir / "best-plan.toml", problem.arm.joint_names)
+        plan = dataclasses.replace(plan, label="previous #1")
+        best = next((e for e in ranking if isinstance(e, dict) and e.get("kind") == "plan"), {})
+        extra = {"previous_rank": 1, "previous_error_index": best.get("error_index")}
+        out.append(Seeded(plan, "previous", extra))
+    return out
+
+
+def tier_depth(plan_toml: str | None, joint_names: Sequence[str]) -> dict[str, int]:
+    """How many tiers each joint is in (the deepest tier that uses it)."""
+    if not plan_toml:
+        return {}
+    plan = parse_plan(tomllib.loads(plan_toml), joint_names, "<ranking>")
+    return {nm: sum(1 for t in plan.tiers if j in t.joints) for j, nm in enumerate(joint_names)}
