@@ -327,6 +327,7 @@ def open_storage(spec: str) -> Any:
 
 def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
     """TPE over the conditional space (multivariate, grouped), seeded."""
+    quiet_optuna()
     return optuna.samplers.TPESampler(seed=seed, multivariate=True, group=True, n_startup_trials=10)
 
 

@@ -149,3 +149,32 @@ def test_two_objective_study_has_a_feasible_front(planar, tmp_path, second) -> N
         )
     with pytest.raises(InputError, match="another --study"):
         srch.run_search(planar, str(tmp_path / "m.journal"), "m", "plan", 11, seed=4)
+
+
+def test_search_gets_near_the_enumerated_best_of_a_tiny_space(planar) -> None:
+    """Within 5 % of the enumerated best with at most a quarter of its evaluations.
+
+    The tiny space (two tiers, 5 gain levels, 250 points) is scored whole once; TPE
+    (three seeds) and random search then draw from that table. Random search at the
+    same budget is printed beside it (``pytest -s``); bench/search.py reports both.
+    """
+    from optimizer import gridcheck as g
+
+    space = g.tiny_space(planar, levels=5)
+    values = g.table(planar, space)
+    assert len(values) == 250
+    best = min(values.values())
+    assert best < srch.PENALTY  # some point is feasible
+    budget = len(values) // 4
+    tpe = [
+        g.evals_to_within(g.sampler_trace(space, values, srch.make_sampler(s), budget), best)
+        for s in range(3)
+    ]
+    rnd = [
+        g.evals_to_within(
+            g.sampler_trace(space, values, optuna.samplers.RandomSampler(seed=s), budget), best
+        )
+        for s in range(3)
+    ]
+    print(f"evals to within 5 % (budget {budget} of {len(values)}): TPE {tpe}, random {rnd}")
+    assert all(n is not None and n <= budget for n in tpe), tpe
