@@ -376,6 +376,7 @@ def _objectives(text: str) -> tuple[str, ...] | None:
 
 def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
     """Run the three studies under a progress display; print the ranking."""
+    import optuna
     from rich.markup import escape
     from rich.progress import (
         BarColumn,
@@ -430,7 +431,32 @@ def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
             )
     if not result.plan_entries:
         out.print("[red]no feasible plan was found[/]: widen the gain ranges or give more trials")
+    for kind, st in result.studies.items():
+        errs = [
+            t.user_attrs["reason"]
+            for t in st.get_trials(deepcopy=False, states=(optuna.trial.TrialState.FAIL,))
+            if str(t.user_attrs.get("reason", "")).startswith("error:")
+        ]
+        if errs:
+            out.print(
+                f"[yellow]{len(errs)} {kind} trials failed with an error (recorded in "
+                f"trials.csv); the first: {escape(errs[0])}[/]"
+            )
     return result
+
+
+def _finish(out, result, out_dir: Path, names: list[str], what: str) -> int:  # type: ignore[no-untyped-def]
+    from .report import SAFETY_SHORT
+
+    out.print(f"{what} took {result.elapsed_s:.0f} s; wrote {out_dir}/ ({', '.join(names)})")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    if result.interrupted:
+        out.print(
+            "[yellow]interrupted[/]: the ranking holds the trials that had finished; "
+            "run the same command again to resume (nothing finished is lost or repeated)"
+        )
+        return EXIT_INTERRUPTED
+    return EXIT_OK
 
 
 def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
@@ -458,7 +484,7 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
 
 def _search(args: argparse.Namespace) -> int:
     from .plan import load_plan
-    from .report import SAFETY_SHORT, console
+    from .report import console
     from .runs import Seeded, run_record, write_run
 
     prob = _load(args.problem)
@@ -472,9 +498,7 @@ def _search(args: argparse.Namespace) -> int:
         out.print(f"[yellow]warning:[/] {w}")
     result = _run_and_show(out, prob, settings, seeded)
     names = write_run(out_dir, prob, result, run_record(prob, settings, result))
-    out.print(f"search took {result.elapsed_s:.0f} s; wrote {out_dir}/ ({', '.join(names)})")
-    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
-    return EXIT_OK
+    return _finish(out, result, out_dir, names, "search")
 
 
 def _swap(args: argparse.Namespace) -> int:
@@ -484,7 +508,7 @@ def _swap(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .problem import load_problem
-    from .report import SAFETY_SHORT, console, fmt, swap_table, tier_moves
+    from .report import console, fmt, swap_table, tier_moves
     from .runs import previous_plans, run_record, tier_depth, write_run
 
     from_dir: Path = args.from_dir
@@ -575,11 +599,7 @@ def _swap(args: argparse.Namespace) -> int:
     names_written = write_run(
         out_dir, prob, result, run_record(prob, settings, result, swap=summary)
     )
-    out.print(
-        f"swap search took {result.elapsed_s:.0f} s; wrote {out_dir}/ ({', '.join(names_written)})"
-    )
-    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
-    return EXIT_OK
+    return _finish(out, result, out_dir, names_written, "swap search")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -104,6 +104,8 @@ class RunResult:
     """Each seeded plan with its score dict under this problem (feasible or not)."""
     elapsed_s: float
     """Wall time of the studies [s]."""
+    interrupted: bool = False
+    """True when Ctrl-C stopped the run: the ranking holds what had finished."""
 
 
 def run_studies(
@@ -133,28 +135,37 @@ def run_studies(
         ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
         ("plan", settings.study, settings.trials, settings.objectives),
     ]
-    for kind, name, n, objectives in runs:
+    interrupted = False
+    try:
+        for kind, name, n, objectives in runs:
 
-        def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
-            if on_progress:
-                on_progress(kind, n, study)
+            def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
+                if on_progress:
+                    on_progress(kind, n, study)
 
-        if kind == "plan":
-            enqueue += _tuned_osc_seed(problem, studies["osc"])
-        studies[kind] = srch.run_search(
-            problem,
-            settings.storage,
-            name,
-            kind,
-            n,
-            settings.seed,
-            settings.workers,
-            prune=settings.prune,
-            enqueue=enqueue if kind == "plan" else (),
-            on_progress=progress,
-            objectives=objectives,
-        )
-        progress(studies[kind])
+            if kind == "plan":
+                enqueue += _tuned_osc_seed(problem, studies["osc"])
+            studies[kind] = srch.run_search(
+                problem,
+                settings.storage,
+                name,
+                kind,
+                n,
+                settings.seed,
+                settings.workers,
+                prune=settings.prune,
+                enqueue=enqueue if kind == "plan" else (),
+                on_progress=progress,
+                objectives=objectives,
+            )
+            progress(studies[kind])
+    except KeyboardInterrupt:
+        interrupted = True
+        for kind, name, _, objectives in runs:  # what had finished, for the ranking
+            if kind not in studies:
+                studies[kind] = srch.open_study(
+                    settings.storage, name, settings.seed, settings.prune, objectives
+                )
     elapsed = time.perf_counter() - t0
 
     plan_e = srch.entries(studies["plan"], "search")
@@ -166,7 +177,9 @@ def run_studies(
     }
     for s in seeded:
         t = by_label.get(s.plan.label)
-        if s in direct:  # the search space cannot express it: scored as it is
+        if s in direct and interrupted:
+            d = {"feasible": False, "reason": "not scored: the run was interrupted"}
+        elif s in direct:  # the search space cannot express it: scored as it is
             d = score_plan(problem, s.plan).to_dict()
             if d["feasible"]:
                 plan_e.append(
@@ -196,7 +209,7 @@ def run_studies(
     for e in ranked:
         e["vs_tuned_osc"] = (e["error_index"] / osc["error_index"] - 1) if osc else None
         e["vs_tuned_joint"] = (e["error_index"] / joint["error_index"] - 1) if joint else None
-    return RunResult(studies, ranked, plan_e, osc, joint, seeded_scores, elapsed)
+    return RunResult(studies, ranked, plan_e, osc, joint, seeded_scores, elapsed, interrupted)
 
 
 def _tuned_osc_seed(
@@ -264,6 +277,8 @@ def run_record(
         "objectives": list(settings.objectives),
         "pruning": settings.prune and len(settings.objectives) == 1,
         "elapsed_s": round(result.elapsed_s, 2),
+        "interrupted": result.interrupted,
+        "finished_trials": {k: srch.finished(st) for k, st in result.studies.items()},
         "command": sys.argv,
         "versions": {
             "tierplan": __version__,

@@ -9,21 +9,23 @@ steer the sampler instead of vanishing. No printing here: callers pass callbacks
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
+import datetime
 import logging
 import math
 import multiprocessing
+import os
+import signal
+import socket
 import warnings
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
 import optuna
-from optuna.storages import JournalStorage
-from optuna.storages.journal import JournalFileBackend
 from optuna.trial import TrialState
 
 from .control import Controller
@@ -35,6 +37,7 @@ from .evaluate import (
     plan_controller,
 )
 from .exceptions import InputError
+from .journal import journal_storage
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
 from .stability import home_margin
@@ -43,6 +46,10 @@ log = logging.getLogger(__name__)
 
 #: Objective value of a trial that diverged or failed the pre-check (finite, for TPE).
 PENALTY = 1e6
+#: This host, as recorded on each trial with the worker's pid (stale-trial detection).
+HOST = socket.gethostname()
+#: A RUNNING trial with no worker recorded is stale after this long [s].
+STALE_S = 60.0
 #: Study kinds and the suffix of their study names.
 KINDS = {"plan": "", "osc": ".osc", "joint_space": ".joint"}
 #: Second objectives of the two-objective mode: optuna direction and what is measured.
@@ -313,7 +320,19 @@ def objective(
         trial.set_user_attr("tiers", 1)
         return run(trial, ctrl, ctrl.label, joint_gains_text(kp, zeta))
 
-    return {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
+    chosen = {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
+
+    def guarded(trial: optuna.trial.Trial) -> float | tuple[float, float]:
+        try:
+            return chosen(trial)
+        except optuna.TrialPruned:
+            raise
+        except Exception as err:  # a failed candidate is a result: say why, go on
+            trial.set_user_attr("reason", f"error: {type(err).__name__}: {err}"[:300])
+            raise
+        # KeyboardInterrupt and SystemExit leave no reason: the trial is abandoned
+
+    return guarded
 
 
 # -- storage and studies -----------------------------------------------------------
@@ -321,14 +340,25 @@ def open_storage(spec: str) -> Any:
     """An optuna storage: a URL (``sqlite:///…``, ``postgresql://…``) or a journal file path."""
     if "://" in spec:
         return spec
-    Path(spec).parent.mkdir(parents=True, exist_ok=True)
-    return JournalStorage(JournalFileBackend(spec))
+    return journal_storage(spec)
+
+
+class _TPE(optuna.samplers.TPESampler):
+    """TPE that records the worker (host:pid) on each trial before anything else runs."""
+
+    def before_trial(self, study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
+        study._storage.set_trial_user_attr(trial._trial_id, "worker", _worker_id())
+        super().before_trial(study, trial)
+
+
+def _worker_id() -> str:
+    return f"{HOST}:{os.getpid()}"
 
 
 def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
     """TPE over the conditional space (multivariate, grouped), seeded."""
     quiet_optuna()
-    return optuna.samplers.TPESampler(seed=seed, multivariate=True, group=True, n_startup_trials=10)
+    return _TPE(seed=seed, multivariate=True, group=True, n_startup_trials=10)
 
 
 def open_study(
@@ -370,10 +400,58 @@ def open_study(
     return study
 
 
+def abandoned(t: optuna.trial.FrozenTrial) -> bool:
+    """A trial that failed without a result: its worker was killed or interrupted."""
+    return t.state == TrialState.FAIL and "reason" not in t.user_attrs
+
+
 def finished(study: optuna.Study) -> int:
-    """Trials that ended (complete, pruned or failed)."""
+    """Trials that ended with a result: complete, pruned, or failed with a reason."""
     done = (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
-    return len(study.get_trials(deepcopy=False, states=done))
+    return sum(1 for t in study.get_trials(deepcopy=False, states=done) if not abandoned(t))
+
+
+def _worker_gone(t: optuna.trial.FrozenTrial, now: datetime.datetime) -> bool:
+    """Whether a RUNNING trial's worker process no longer runs (on this host)."""
+    worker = t.user_attrs.get("worker")
+    if worker is None:  # killed before its first write: stale once it is old
+        start = t.datetime_start
+        return start is not None and (now - start).total_seconds() > STALE_S
+    host, _, pid = str(worker).rpartition(":")
+    if host != HOST or not pid.isdigit():
+        return False  # another machine's worker: the database heartbeat handles it
+    try:
+        os.kill(int(pid), 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:
+        return False
+    return False
+
+
+def reclaim(study: optuna.Study) -> tuple[int, int]:
+    """Fail trials left RUNNING by dead workers and queue abandoned trials again.
+
+    Returns (trials marked failed, trials queued again). A retry keeps the abandoned
+    trial's parameters and source and records ``retry_of``; each is retried once.
+    """
+    now = datetime.datetime.now()
+    failed = 0
+    for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        if _worker_gone(t, now):  # no public API fails another process's trial
+            study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+            failed += 1
+    trials = study.get_trials(deepcopy=False)
+    retried = {t.user_attrs.get("retry_of") for t in trials}
+    queued = 0
+    for t in trials:
+        if abandoned(t) and t.number not in retried:
+            attrs: dict[str, Any] = {
+                k: t.user_attrs[k] for k in ("source", "label") if k in t.user_attrs
+            }
+            study.enqueue_trial(dict(t.params), user_attrs={**attrs, "retry_of": t.number})
+            queued += 1
+    return failed, queued
 
 
 @dataclass(frozen=True)
@@ -399,7 +477,7 @@ def run_worker(job: WorkerJob) -> int:
     study.optimize(
         objective(problem, job.kind, job.prune, job.objectives),
         n_trials=job.n_trials,
-        catch=(ArithmeticError, ValueError, np.linalg.LinAlgError),
+        catch=(Exception,),
     )
     return job.n_trials
 
@@ -427,6 +505,7 @@ def run_search(
     """
     objectives = tuple(objectives)
     study = open_study(storage, study_name, seed, prune, objectives)
+    reclaim(study)
     for params, attrs in enqueue:
         study.enqueue_trial(params, user_attrs=attrs, skip_if_exists=True)
     remaining = max(0, total_trials - finished(study))
@@ -440,7 +519,7 @@ def run_search(
             objective(problem, kind, prune, objectives),
             n_trials=remaining,
             callbacks=cb,
-            catch=(ArithmeticError, ValueError, np.linalg.LinAlgError),
+            catch=(Exception,),
         )
         return study
     shares = [remaining // workers + (1 if i < remaining % workers else 0) for i in range(workers)]
@@ -460,7 +539,8 @@ def run_search(
         if s > 0
     ]
     ctx = multiprocessing.get_context("spawn")
-    with ProcessPoolExecutor(max_workers=len(jobs), mp_context=ctx) as pool:
+    pool = ProcessPoolExecutor(max_workers=len(jobs), mp_context=ctx)
+    try:
         futures = [pool.submit(run_worker, j) for j in jobs]
         while not all(f.done() for f in futures):
             if on_progress:
@@ -472,6 +552,13 @@ def run_search(
                     pass
         for f in futures:
             f.result()  # re-raise a worker's error
+    except KeyboardInterrupt:  # stop the workers too: each abandons its trial in flight
+        for proc in list(getattr(pool, "_processes", {}).values()):
+            with contextlib.suppress(ProcessLookupError):
+                os.kill(proc.pid, signal.SIGINT)
+        pool.shutdown(wait=True, cancel_futures=True)
+        raise
+    pool.shutdown(wait=True)
     return study
 
 

@@ -1,0 +1,119 @@
+"""A search killed or interrupted part way loses no finished trial and repeats none."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import optuna
+import pytest
+from problems import PLANAR
+
+from optimizer import search as srch
+
+
+def _command(trials: int, workers: int = 1) -> list[str]:
+    return [
+        sys.executable, "-m", "optimizer", "search", str(PLANAR), "--study", "k",
+        "--trials", str(trials), "--baseline-trials", "2", "--workers", str(workers),
+        "--seed", "3",
+    ]  # fmt: skip
+
+
+def _study(cwd: Path) -> optuna.Study | None:
+    journal = cwd / "results" / "planar3" / "studies.journal"
+    if not journal.exists():
+        return None
+    try:
+        return optuna.load_study(study_name="k", storage=srch.open_storage(str(journal)))
+    except KeyError:
+        return None
+
+
+def _start_and_wait(cwd: Path, trials: int, at_least: int, workers: int = 1) -> subprocess.Popen:
+    """Start a search and return once the plan study has ``at_least`` finished trials."""
+    proc = subprocess.Popen(
+        _command(trials, workers),
+        cwd=cwd,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        start_new_session=True,
+    )
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline:
+        st = _study(cwd)
+        if st is not None and srch.finished(st) >= at_least:
+            return proc
+        assert proc.poll() is None, proc.stderr.read().decode() if proc.stderr else ""
+        time.sleep(0.05)
+    proc.kill()
+    raise AssertionError("the search did not get going in 120 s")
+
+
+def _wait_group_gone(pgid: int) -> None:
+    deadline = time.monotonic() + 30
+    while time.monotonic() < deadline:
+        try:
+            os.killpg(pgid, 0)
+        except ProcessLookupError:
+            return
+        time.sleep(0.05)
+    raise AssertionError(f"process group {pgid} still runs 30 s after SIGKILL")
+
+
+def _snapshot(study: optuna.Study) -> dict[int, tuple]:
+    done = (optuna.trial.TrialState.COMPLETE, optuna.trial.TrialState.PRUNED)
+    return {t.number: (t.state, t.params, t.values) for t in study.get_trials(states=done)}
+
+
+def _check_whole(study: optuna.Study, total: int, before: dict[int, tuple]) -> None:
+    trials = study.get_trials()
+    numbers = [t.number for t in trials]
+    assert len(set(numbers)) == len(numbers) == max(numbers) + 1  # none duplicated
+    assert srch.finished(study) == total
+    assert not [t for t in trials if t.state.name in ("RUNNING", "WAITING")]
+    after = _snapshot(study)
+    for n, v in before.items():  # every trial finished before the stop is kept as it was
+        assert after[n] == v, n
+    retried = [t.user_attrs["retry_of"] for t in trials if "retry_of" in t.user_attrs]
+    assert sorted(retried) == sorted(t.number for t in trials if srch.abandoned(t))
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_killed_search_resumes_without_loss(tmp_path, workers) -> None:
+    """SIGKILL to the whole process group part way, then the same command again."""
+    proc = _start_and_wait(tmp_path, 30, 6, workers)
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    _wait_group_gone(proc.pid)  # the workers too: a live pid is never reclaimed
+    study = _study(tmp_path)
+    assert study is not None
+    before = _snapshot(study)
+    assert 6 <= len(before) < 30
+    again = subprocess.run(_command(30, workers), cwd=tmp_path, capture_output=True, text=True)
+    assert again.returncode == 0, again.stderr
+    _check_whole(_study(tmp_path), 30, before)
+    ranking = json.loads((tmp_path / "results" / "planar3" / "k" / "ranking.json").read_text())
+    assert ranking
+
+
+def test_ctrl_c_writes_the_ranking_so_far_and_says_so(tmp_path) -> None:
+    """SIGINT (as Ctrl-C sends it): exit code 130, files written, the resume completes."""
+    proc = _start_and_wait(tmp_path, 400, 5)
+    os.killpg(proc.pid, signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    out = tmp_path / "results" / "planar3" / "k"
+    run = json.loads((out / "run.json").read_text())
+    assert run["interrupted"] is True and 5 <= run["finished_trials"]["plan"] < 400
+    assert json.loads((out / "ranking.json").read_text()) is not None
+    before = _snapshot(_study(tmp_path))
+    n = run["finished_trials"]["plan"] + 3
+    again = subprocess.run(_command(n), cwd=tmp_path, capture_output=True, text=True)
+    assert again.returncode == 0, again.stderr
+    _check_whole(_study(tmp_path), n, before)
