@@ -193,6 +193,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     return EXIT_INPUT
 
 
+def _console_for(prob):  # type: ignore[no-untyped-def]
+    """The output console, after the problem's warnings."""
+    from .report import console
+
+    out = console()
+    for w in prob.warnings:
+        out.print(f"[yellow]warning:[/] {w}")
+    return out
+
+
 def _load(path: Path):  # type: ignore[no-untyped-def]
     from .problem import load_problem
 
@@ -200,12 +210,10 @@ def _load(path: Path):  # type: ignore[no-untyped-def]
 
 
 def _check(args: argparse.Namespace) -> int:
-    from .report import check_table, console, plant_line
+    from .report import check_table, plant_line
 
     prob = _load(args.problem)
-    out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
+    out = _console_for(prob)
     for t in check_table(prob):
         out.print(t)
     out.print(plant_line(prob))
@@ -223,7 +231,6 @@ def _score(args: argparse.Namespace) -> int:
     from .plan import load_plan
     from .report import (
         SAFETY_SHORT,
-        console,
         plan_legend,
         score_table,
         scores_json,
@@ -237,9 +244,7 @@ def _score(args: argparse.Namespace) -> int:
             "tierplan: error: score needs at least one --plan FILE or --baselines", file=sys.stderr
         )
         return EXIT_INPUT
-    out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
+    out = _console_for(prob)
     kw = {"compute_margin": not args.no_margin}
     scores = []
     jobs: list[tuple[str, Callable[[], Score]]] = [
@@ -484,7 +489,6 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
 
 def _search(args: argparse.Namespace) -> int:
     from .plan import load_plan
-    from .report import console
     from .runs import Seeded, run_record, write_run
 
     prob = _load(args.problem)
@@ -493,9 +497,7 @@ def _search(args: argparse.Namespace) -> int:
         return EXIT_INPUT
     seeded = [Seeded(load_plan(p, prob.arm.joint_names), "hand") for p in args.plan]
     out_dir = args.out or Path("results") / prob.name / args.study
-    out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
+    out = _console_for(prob)
     result = _run_and_show(out, prob, settings, seeded)
     names = write_run(out_dir, prob, result, run_record(prob, settings, result))
     return _finish(out, result, out_dir, names, "search")
@@ -508,7 +510,7 @@ def _swap(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .problem import load_problem
-    from .report import console, fmt, swap_table, tier_moves
+    from .report import fmt, swap_table, tier_moves
     from .runs import previous_plans, run_record, tier_depth, write_run
 
     from_dir: Path = args.from_dir
@@ -546,9 +548,7 @@ def _swap(args: argparse.Namespace) -> int:
             "tierplan: error: --out must differ from --from (the old run is kept)", file=sys.stderr
         )
         return EXIT_INPUT
-    out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
+    out = _console_for(prob)
     names = prob.arm.joint_names
     changed = ", ".join(
         f"{a.joint} {a.model.bandwidth_hz():.3g} Hz"
