@@ -121,23 +121,23 @@ def test_swap_rescores_and_warm_starts_from_the_previous_run(tmp_path, monkeypat
 
 @pytest.mark.slow
 def test_a_slow_wrist_moves_out_of_the_fast_tiers_on_the_demo(tmp_path, monkeypatch) -> None:
-    """A 4 Hz wrist_pitch (was 80 Hz; the shoulders have 8) leaves the later tiers of the best plan.
+    """An 8 Hz second-order wrist_pitch (was 80 Hz) leaves the later tiers of the best plan.
 
     Why (common practice, no source): a tier through a slow actuator caps that tier's
     stable gain, so the stiff tiers should run through the fast joints only. Measured:
-    at 6 or 12 Hz the previous best plan stays best (its tiers through wrist_pitch carry
-    low gains), so the test uses a drive slower than every other.
+    with a first-order 6 or 12 Hz drive the previous best plan stays best (its tiers
+    through wrist_pitch carry low gains), and with 2 workers the outcome varied with timing.
     """
     monkeypatch.chdir(tmp_path)
-    args = ["--trials", "40", "--baseline-trials", "10", "--seed", "7", "--workers", "2"]
+    args = ["--trials", "60", "--baseline-trials", "20", "--seed", "7"]  # 1 worker: repeatable
     assert main(["search", str(DEMO), *args]) == 0
     run = tmp_path / "results" / "polish7" / "main"
     names = load_problem(DEMO).arm.joint_names
     before = tier_depth((run / "best-plan.toml").read_text(), names)
     assert before["wrist_pitch"] >= 2  # a fast joint the best plan used beyond tier 1
-    f = _act(tmp_path, "[actuators.wrist_pitch]\ncorner_hz = 4.0\n", "slow-wrist.toml")
+    f = DEMO.parent / "swap-wrist-pitch.toml"  # 8 Hz second order
     assert main(["swap", str(DEMO), "--actuators", str(f), "--from", str(run), *args]) == 0
-    new = next(d for d in run.parent.iterdir() if "swap-slow-wrist" in d.name)
+    new = next(d for d in run.parent.iterdir() if "swap-wrist-pitch" in d.name)
     after = tier_depth((new / "best-plan.toml").read_text(), names)
     assert after["wrist_pitch"] < before["wrist_pitch"]
     ranking = json.loads((new / "ranking.json").read_text())
