@@ -166,6 +166,8 @@ def run_studies(
                 studies[kind] = srch.open_study(
                     settings.storage, name, settings.seed, settings.prune, objectives
                 )
+        for st in studies.values():
+            srch.abandon_own(st)
     elapsed = time.perf_counter() - t0
 
     plan_e = srch.entries(studies["plan"], "search")

@@ -429,6 +429,16 @@ def _worker_gone(t: optuna.trial.FrozenTrial, now: datetime.datetime) -> bool:
     return False
 
 
+def abandon_own(study: optuna.Study) -> int:
+    """After Ctrl-C: fail this process's RUNNING trials (and ones not yet claimed by any)."""
+    n = 0
+    for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        if t.user_attrs.get("worker") in (None, _worker_id()):
+            study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+            n += 1
+    return n
+
+
 def reclaim(study: optuna.Study) -> tuple[int, int]:
     """Fail trials left RUNNING by dead workers and queue abandoned trials again.
 
