@@ -222,7 +222,7 @@ def _tuned_osc_seed(
     best = srch.entries(osc, "tuned")
     if not best or not best[0].get("plan_toml"):
         return []
-    plan = parse_plan(tomllib.loads(best[0]["plan_toml"]), problem.arm.joint_names, "<osc>")
+    plan = _plan_of(best[0]["plan_toml"], problem.arm.joint_names)
     params = srch.plan_params(srch.clip_to_space(plan, problem), problem)
     if params is None:
         return []
@@ -381,9 +381,14 @@ def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
     return out
 
 
+def _plan_of(plan_toml: str, joint_names: Sequence[str]) -> Plan:
+    """A plan from the TOML text a trial stored (``plan_toml``)."""
+    return parse_plan(tomllib.loads(plan_toml), joint_names, "<stored plan>")
+
+
 def tier_depth(plan_toml: str | None, joint_names: Sequence[str]) -> dict[str, int]:
     """How many tiers each joint is in (the deepest tier that uses it)."""
     if not plan_toml:
         return {}
-    plan = parse_plan(tomllib.loads(plan_toml), joint_names, "<ranking>")
+    plan = _plan_of(plan_toml, joint_names)
     return {nm: sum(1 for t in plan.tiers if j in t.joints) for j, nm in enumerate(joint_names)}

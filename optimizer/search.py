@@ -429,12 +429,17 @@ def _worker_gone(t: optuna.trial.FrozenTrial, now: datetime.datetime) -> bool:
     return False
 
 
+def _fail(study: optuna.Study, t: optuna.trial.FrozenTrial) -> None:
+    """Mark another process's (or a dead one's) RUNNING trial failed: no public API does."""
+    study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+
+
 def abandon_own(study: optuna.Study) -> int:
     """After Ctrl-C: fail this process's RUNNING trials (and ones not yet claimed by any)."""
     n = 0
     for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
         if t.user_attrs.get("worker") in (None, _worker_id()):
-            study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+            _fail(study, t)
             n += 1
     return n
 
@@ -448,8 +453,8 @@ def reclaim(study: optuna.Study) -> tuple[int, int]:
     now = datetime.datetime.now()
     failed = 0
     for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-        if _worker_gone(t, now):  # no public API fails another process's trial
-            study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+        if _worker_gone(t, now):
+            _fail(study, t)
             failed += 1
     trials = study.get_trials(deepcopy=False)
     retried = {t.user_attrs.get("retry_of") for t in trials}
