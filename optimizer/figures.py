@@ -1,0 +1,308 @@
+"""Figures (matplotlib, no screen needed): each function returns a Figure; saving is the caller's.
+
+Colours are fixed per role so a plan keeps its colour across figures: the best plan,
+tuned single-tier OSC and tuned joint-space have their own; other plans take the
+rest of the palette in rank order (``plan_colors``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import matplotlib
+
+matplotlib.use("Agg")  # files only; no display on the machines this runs on
+
+import matplotlib.pyplot as plt
+import numpy as np
+import scipy.signal
+from matplotlib.figure import Figure
+
+from .fit import ActuatorFit, FrequencyLog, Log, TimeLog, simulate_time
+from .simulate import Rollout
+
+BEST = "#1f5fa8"
+OSC = "#c43c2f"
+JOINT = "#6b6b6b"
+DATA = "#222222"
+_OTHERS = ("#2a9d5c", "#d08c1f", "#8a4fb0", "#1aa3b3", "#b5527e", "#7a8a2a", "#5a6fd6")
+TIER_COLORS = ("#1f5fa8", "#2a9d5c", "#d08c1f", "#8a4fb0", "#1aa3b3", "#b5527e")
+
+
+def plan_colors(labels: Sequence[str], roles: Mapping[str, str] | None = None) -> dict[str, str]:
+    """A colour per label: role ``best``/``osc``/``joint`` get fixed ones, others in order."""
+    roles = roles or {}
+    fixed = {"best": BEST, "osc": OSC, "joint": JOINT}
+    out: dict[str, str] = {}
+    i = 0
+    for lb in labels:
+        if roles.get(lb) in fixed:
+            out[lb] = fixed[roles[lb]]
+        else:
+            out[lb] = _OTHERS[i % len(_OTHERS)]
+            i += 1
+    return out
+
+
+def _new(rows: int, cols: int, w: float, h: float, **kw: Any) -> tuple[Figure, np.ndarray]:
+    fig, axes = plt.subplots(rows, cols, figsize=(w, h), squeeze=False, **kw)
+    return fig, axes
+
+
+# -- fit -----------------------------------------------------------------------------
+def fit_figure(log: Log, fit: ActuatorFit, title: str = "") -> Figure:
+    """Data against fit: Bode plot (frequency log) or time response (time log)."""
+    if isinstance(log, FrequencyLog):
+        fig, ax = _new(2, 1, 7.0, 6.0, sharex=True)
+        f = np.geomspace(log.f_hz[0], log.f_hz[-1], 400)
+        mag, ph = fit.response(f)
+        ax[0, 0].semilogx(log.f_hz, log.mag_db, "o", ms=3, color=DATA, label="measured")
+        ax[0, 0].semilogx(f, mag, color=BEST, label=f"fit: {fit.actuator().describe()}")
+        ax[0, 0].axhline(-3.01, color=JOINT, ls=":", lw=1, label="−3 dB")
+        ax[0, 0].axvline(fit.bandwidth_hz, color=OSC, ls="--", lw=1,
+                         label=f"bandwidth {fit.bandwidth_hz:.3g} Hz")
+        ax[0, 0].set_ylabel("magnitude [dB]")
+        ax[1, 0].semilogx(log.f_hz, log.phase_deg, "o", ms=3, color=DATA, label="measured")
+        ax[1, 0].semilogx(f, ph, color=BEST, label=f"fit, delay {fit.delay_ms:.3g} ms")
+        ax[1, 0].set_ylabel("phase [deg]")
+        ax[1, 0].set_xlabel("frequency [Hz]")
+        for a in ax[:, 0]:
+            a.grid(True, which="both", alpha=0.3)
+            a.legend(loc="lower left", fontsize=8)
+    else:
+        if not isinstance(log, TimeLog):  # pragma: no cover - Log has two kinds
+            raise TypeError(type(log))
+        fig, ax = _new(2, 1, 7.0, 6.0, sharex=True, height_ratios=(3, 1))
+        lag = list(fit.params.values())
+        y = simulate_time(fit.model, lag, fit.delay_ms * 1e-3, log.h, log.commanded)
+        ax[0, 0].plot(log.t, log.commanded, color=JOINT, lw=1, label="commanded")
+        ax[0, 0].plot(log.t, log.measured, color=DATA, lw=1, label="measured")
+        ax[0, 0].plot(log.t, y, color=BEST, lw=1.5, ls="--",
+                      label=f"fit: {fit.actuator().describe()}, delay {fit.delay_ms:.3g} ms")
+        ax[0, 0].set_ylabel("torque [N·m]")
+        ax[0, 0].legend(fontsize=8)
+        ax[1, 0].plot(log.t, log.measured - y, color=OSC, lw=1, label="measured − fit")
+        ax[1, 0].set_ylabel("residual [N·m]")
+        ax[1, 0].set_xlabel("time [s]")
+        ax[1, 0].legend(fontsize=8)
+        for a in ax[:, 0]:
+            a.grid(True, alpha=0.3)
+    fig.suptitle(title or "actuator fit")
+    fig.tight_layout()
+    return fig
+
+
+# -- runs ----------------------------------------------------------------------------
+def error_figure(
+    series: Sequence[tuple[str, Sequence[Rollout]]], colors: Mapping[str, str]
+) -> Figure:
+    """Tip position and orientation error over time: a row per trajectory, a line per plan."""
+    names = [ro.name for ro in series[0][1]]
+    fig, ax = _new(len(names), 2, 11.0, 2.4 * len(names) + 0.8, sharex="row")
+    for r, name in enumerate(names):
+        for label, rollouts in series:
+            ro = next((x for x in rollouts if x.name == name), None)
+            if ro is None:
+                continue
+            c = colors.get(label)
+            ax[r, 0].plot(ro.t, 1e3 * np.linalg.norm(ro.e[:, :3], axis=1), color=c, lw=1,
+                          label=label)
+            ax[r, 1].plot(ro.t, np.rad2deg(np.linalg.norm(ro.e[:, 3:], axis=1)), color=c, lw=1,
+                          label=label)
+        ax[r, 0].set_title(f"{name}: position error", fontsize=9)
+        ax[r, 1].set_title(f"{name}: orientation error", fontsize=9)
+        ax[r, 0].set_ylabel("|position error| [mm]")
+        ax[r, 1].set_ylabel("|orientation error| [deg]")
+        for a in ax[r]:
+            a.set_xlabel("time [s]")
+            a.grid(True, alpha=0.3)
+    ax[0, 0].legend(fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def torque_figure(
+    ro: Rollout,
+    joint_names: Sequence[str],
+    limits: Sequence[float],
+    title: str = "",
+) -> Figure:
+    """Each tier's torque and the command per joint (one panel per joint), limits marked."""
+    n = len(joint_names)
+    fig, ax = _new(n, 1, 9.0, 1.5 * n + 1.0, sharex=True)
+    n_tiers = ro.tier_tau.shape[1]
+    for j, name in enumerate(joint_names):
+        a = ax[j, 0]
+        for k in range(n_tiers):
+            a.plot(ro.t, ro.tier_tau[:, k, j], color=TIER_COLORS[k % len(TIER_COLORS)], lw=0.9,
+                   label=f"tier {k + 1}")
+        a.plot(ro.t, ro.tau_cmd[:, j], color=DATA, lw=1.2, label="command (sum, limited)")
+        lim = float(limits[j])
+        if math.isfinite(lim):
+            for s in (1.0, -1.0):
+                a.axhline(s * lim, color=OSC, ls="--", lw=0.8,
+                          label="effort limit" if s > 0 else None)
+        a.set_ylabel(f"{name}\n[N·m]", fontsize=8)
+        a.grid(True, alpha=0.3)
+    ax[-1, 0].set_xlabel("time [s]")
+    ax[0, 0].legend(fontsize=7, ncol=n_tiers + 2, loc="upper right")
+    fig.suptitle(title or f"torque per tier on '{ro.name}'")
+    fig.tight_layout()
+    return fig
+
+
+def torque_psd(rollouts: Sequence[Rollout], dt: float) -> tuple[np.ndarray, np.ndarray]:
+    """Welch PSD of each joint's command, averaged over trajectories: (f [Hz], P (m, n))."""
+    seg = min(512, min(len(ro.t) for ro in rollouts))
+    psds = []
+    f = np.zeros(0)
+    for ro in rollouts:
+        f, P = scipy.signal.welch(ro.tau_cmd, fs=1.0 / dt, nperseg=seg, axis=0, detrend="linear")
+        psds.append(P)
+    return f, np.mean(psds, axis=0)
+
+
+def spectrum_figure(
+    series: Sequence[tuple[str, Sequence[Rollout]]],
+    colors: Mapping[str, str],
+    joint_names: Sequence[str],
+    bandwidths_hz: Sequence[float],
+    dt: float,
+) -> Figure:
+    """Spectrum of each joint's commanded torque, each actuator's bandwidth marked."""
+    n = len(joint_names)
+    cols = 2
+    rows = math.ceil(n / cols)
+    fig, ax = _new(rows, cols, 11.0, 2.3 * rows + 0.8)
+    for label, rollouts in series:
+        f, P = torque_psd(rollouts, dt)
+        for j in range(n):
+            a = ax[j // cols, j % cols]
+            a.loglog(f[1:], P[1:, j], color=colors.get(label), lw=1, label=label)
+    for j, name in enumerate(joint_names):
+        a = ax[j // cols, j % cols]
+        a.axvline(bandwidths_hz[j], color=DATA, ls="--", lw=0.9,
+                  label=f"bandwidth {bandwidths_hz[j]:.3g} Hz")
+        a.set_title(name, fontsize=9)
+        a.set_xlabel("frequency [Hz]")
+        a.set_ylabel("PSD [(N·m)²/Hz]")
+        a.grid(True, which="both", alpha=0.3)
+        a.legend(fontsize=7)
+    for j in range(n, rows * cols):
+        ax[j // cols, j % cols].set_visible(False)
+    fig.suptitle("commanded torque spectrum (mean over trajectories)")
+    fig.tight_layout()
+    return fig
+
+
+def history_figure(rows: Sequence[Mapping[str, Any]], colors: Mapping[str, str]) -> Figure:
+    """Best feasible error index so far against trial number, a line per study kind.
+
+    ``rows`` are trials.csv rows (``kind``, ``number``, ``value``, ``feasible``);
+    ``colors`` maps the kinds (``plan``, ``osc``, ``joint_space``) to colours.
+    """
+    fig, ax = _new(1, 1, 8.0, 4.5)
+    a = ax[0, 0]
+    names = {"plan": "tier plans", "osc": "single-tier OSC", "joint_space": "joint-space CLIK + PD"}
+    for kind in ("plan", "osc", "joint_space"):
+        rs = sorted((r for r in rows if r.get("kind") == kind), key=lambda r: int(r["number"]))
+        if not rs:
+            continue
+        xs, ys = [], []
+        best = math.inf
+        for r in rs:
+            if _truthy(r.get("feasible")) and r.get("value") not in (None, ""):
+                best = min(best, float(r["value"]))
+            if math.isfinite(best):
+                xs.append(int(r["number"]))
+                ys.append(best)
+        a.step(xs, ys, where="post", color=colors.get(kind), lw=1.5, label=names[kind])
+    a.set_xlabel("trial [-]")
+    a.set_ylabel("best feasible error index so far [-]")
+    a.set_yscale("log")
+    a.grid(True, which="both", alpha=0.3)
+    a.legend(fontsize=8)
+    a.set_title("search history")
+    fig.tight_layout()
+    return fig
+
+
+def pareto_figure(
+    rows: Sequence[Mapping[str, Any]], second: str, chosen_trial: int | None
+) -> Figure:
+    """Feasible plan trials in the (error, second objective) plane, the front and the pick."""
+    fig, ax = _new(1, 1, 7.0, 5.0)
+    a = ax[0, 0]
+    pts = [
+        (float(r["value"]), float(r["value_2"]), int(r["number"]))
+        for r in rows
+        if r.get("kind") == "plan"
+        and _truthy(r.get("feasible"))
+        and r.get("value_2") not in (None, "")
+    ]
+    from .search import SECOND_OBJECTIVES, pareto_front
+
+    direction = SECOND_OBJECTIVES[second][0] if second in SECOND_OBJECTIVES else "minimize"
+    if pts:
+        front = pareto_front([(p[0], p[1]) for p in pts], ["minimize", direction])
+        a.plot([p[0] for p in pts], [p[1] for p in pts], "o", ms=4, color=JOINT, alpha=0.6,
+               label="feasible trials")
+        fp = sorted((p for p, on in zip(pts, front) if on), key=lambda p: p[0])
+        a.plot([p[0] for p in fp], [p[1] for p in fp], "o-", ms=5, color=BEST,
+               label="Pareto front")
+        pick = next((p for p in pts if p[2] == chosen_trial), None)
+        if pick:
+            a.plot([pick[0]], [pick[1]], "*", ms=14, color=OSC, label=f"chosen (trial {pick[2]})")
+    unit = {"margin": "stability margin [-]", "effort": "RMS commanded torque [N·m]"}
+    a.set_xlabel("error index [-]")
+    a.set_ylabel(unit.get(second, second))
+    a.grid(True, alpha=0.3)
+    a.legend(fontsize=8)
+    a.set_title(f"plans: error against {second}")
+    fig.tight_layout()
+    return fig
+
+
+def margin_figure(
+    entries: Sequence[Mapping[str, Any]], colors: Mapping[str, str], min_margin: float
+) -> Figure:
+    """Stability margin of each ranked entry (horizontal bars), the threshold marked."""
+    fig, ax = _new(1, 1, 8.0, 0.35 * len(entries) + 1.6)
+    a = ax[0, 0]
+    labels = [str(e["label"]) for e in entries]
+    vals = [float(e["margin"]) if e.get("margin") is not None else 0.0 for e in entries]
+    y = np.arange(len(entries))[::-1]
+    a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
+    a.set_yticks(y, [f"{e.get('rank', '')}. {lb}" for e, lb in zip(entries, labels)], fontsize=8)
+    a.axvline(min_margin, color=DATA, ls="--", lw=1, label=f"min_margin {min_margin:g}")
+    a.set_xlabel("stability margin = 1 − spectral radius [-]")
+    a.grid(True, axis="x", alpha=0.3)
+    a.legend(fontsize=8)
+    a.set_title("stability margin of each ranked plan")
+    fig.tight_layout()
+    return fig
+
+
+def _truthy(v: object) -> bool:
+    return v is True or str(v).lower() in ("true", "1")
+
+
+def save(fig: Figure, path: Any) -> None:
+    """Save as PNG (150 dpi) by temporary file and rename, and free the figure."""
+    import os
+    import tempfile
+    from pathlib import Path
+
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=".png", dir=path.parent)
+    os.close(fd)
+    try:
+        fig.savefig(tmp, dpi=150, format="png")
+        os.replace(tmp, path)
+    finally:
+        plt.close(fig)
+        if os.path.exists(tmp):
+            os.unlink(tmp)
