@@ -40,7 +40,26 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("problem", type=Path, help="problem file (TOML)")
 
     s = sub.add_parser("score", help="simulate plans (and baselines) on a problem's trajectories")
-    s.add_argument("problem", type=Path, help="problem file (TOML)")
+    s.add_argument(
+        "problem",
+        type=Path,
+        nargs="?",
+        help="problem file (TOML); with --from, default: the run's own",
+    )
+    s.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        metavar="RUN",
+        help="re-score every ranked entry of a search's results folder and check that the "
+        "numbers of its ranking.json are reproduced exactly",
+    )
+    s.add_argument(
+        "--figures",
+        type=Path,
+        metavar="DIR",
+        help="draw error-over-time, torque-per-tier and torque-spectrum PNGs into DIR",
+    )
     s.add_argument(
         "--plan",
         type=Path,
@@ -75,6 +94,11 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="hand plan to rank beside the optimized ones; repeatable",
     )
+    r.add_argument(
+        "--figures",
+        action="store_true",
+        help="write report.md and its figures into the results folder when done",
+    )
     w = sub.add_parser(
         "swap",
         help="apply new actuator settings, re-score a previous run's plans, search again "
@@ -105,7 +129,21 @@ def _parser() -> argparse.ArgumentParser:
         "perturbed plants",
     )
     c2.add_argument("problem", type=Path, help="problem file (TOML)")
-    c2.add_argument("plans", type=Path, nargs="+", metavar="PLAN", help="plan files (TOML)")
+    c2.add_argument("plans", type=Path, nargs="*", metavar="PLAN", help="plan files (TOML)")
+    c2.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        metavar="RUN",
+        help="also compare a search's best plan, its hand plans and both tuned baselines "
+        "(exact gains), and write robustness.json into that folder for its report",
+    )
+    c2.add_argument(
+        "--figures",
+        type=Path,
+        metavar="DIR",
+        help="draw the robustness and margin PNGs into DIR",
+    )
     c2.add_argument(
         "--perturb",
         type=int,
@@ -119,6 +157,19 @@ def _parser() -> argparse.ArgumentParser:
         help="include both baselines at the gains of the problem's [baseline] table",
     )
     c2.add_argument("--json", type=Path, metavar="FILE", help="write the results as JSON")
+    rp = sub.add_parser(
+        "report",
+        help="write report.md with figures for a search's results folder",
+    )
+    rp.add_argument(
+        "run", type=Path, metavar="RUN", help="results folder (results/<problem>/<study>)"
+    )
+    rp.add_argument(
+        "--problem",
+        type=Path,
+        metavar="FILE",
+        help="problem file (default: the one named in the run's run.json)",
+    )
     f = sub.add_parser(
         "fit",
         help="fit an actuator model (lag + delay) to a bench log: frequency response or "
@@ -221,6 +272,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _swap(args)
         if args.command == "fit":
             return _fit(args)
+        if args.command == "report":
+            return _report(args)
     except InputError as err:
         if args.debug:
             raise
@@ -281,6 +334,11 @@ def _score(args: argparse.Namespace) -> int:
         write_atomic,
     )
 
+    if args.from_dir is not None:
+        return _score_from(args)
+    if args.problem is None:
+        print("tierplan: error: score needs a problem file (or --from RUN)", file=sys.stderr)
+        return EXIT_INPUT
     prob = _load(args.problem)
     plans = [load_plan(p, prob.arm.joint_names) for p in args.plan]
     if not plans and not args.baselines:
@@ -289,9 +347,10 @@ def _score(args: argparse.Namespace) -> int:
         )
         return EXIT_INPUT
     out = _console_for(prob)
-    kw = {"compute_margin": not args.no_margin}
+    kw: dict = {"compute_margin": not args.no_margin}
     scores = []
-    jobs: list[tuple[str, Callable[[], Score]]] = [
+    kept: list[list] = []
+    jobs: list[tuple[str, Callable[..., Score]]] = [
         (pl.label, functools.partial(score_plan, prob, pl, **kw)) for pl in plans
     ]
     if args.baselines:
@@ -304,7 +363,8 @@ def _score(args: argparse.Namespace) -> int:
             status.update(
                 f"simulating {label} ({i}/{len(jobs)}) on {len(prob.references)} trajectories…"
             )
-            scores.append(job())
+            kept.append([])
+            scores.append(job(keep_rollouts=kept[-1] if args.figures else None))
     ref = next((s for s in scores if s.kind == "osc"), scores[0])
     out.print(score_table(scores, reference=ref))
     out.print(escape("plans ([joints] t = kp_t, r = kp_r [1/s²], z = ζ):"))
@@ -319,6 +379,86 @@ def _score(args: argparse.Namespace) -> int:
     if args.json:
         write_atomic(args.json, scores_json(scores))
         out.print(f"wrote {args.json}")
+    if args.figures:
+        _score_figures(out, args.figures, prob, scores, kept)
+    return EXIT_OK
+
+
+def _score_figures(out, folder: Path, prob, scores, kept) -> None:  # type: ignore[no-untyped-def]
+    from .runreport import rollout_figures
+
+    role = {"osc": "osc", "joint_space": "joint"}
+    first_plan = next((s.label for s in scores if s.kind == "plan"), None)
+    series = [
+        (s.label, "best" if s.label == first_plan else role.get(s.kind, ""), ro)
+        for s, ro in zip(scores, kept)
+    ]
+    figs = rollout_figures(folder, prob, series)
+    out.print(f"figures: {', '.join(str(folder / f) for f, _ in figs)}")
+
+
+def _score_from(args: argparse.Namespace) -> int:
+    from rich.markup import escape
+
+    from .report import SAFETY_SHORT, score_table, scores_json, write_atomic
+    from .runreport import mismatches, read_run, rebuild, rescore, run_problem
+
+    run = read_run(args.from_dir)
+    prob, notes = run_problem(run, args.problem)
+    out = _console_for(prob)
+    for n in notes:
+        out.print(f"[yellow]warning:[/] {escape(n)}")
+    scores: list = []
+    kept: list[list] = []
+    diffs: list[list[str]] = []
+    with out.status("re-simulating…") as status:
+        for i, e in enumerate(run.ranking, start=1):
+            status.update(f"re-simulating rank {e.get('rank')} ({i}/{len(run.ranking)})…")
+            kept.append([])
+            sc = rescore(
+                prob, rebuild(e, run, prob), kept[-1] if args.figures else None,
+                compute_margin=not args.no_margin,
+            )
+            scores.append(sc)
+            diffs.append(mismatches(e, sc) if not args.no_margin else [])
+    ref = next((s for s in scores if s.kind == "osc"), scores[0]) if scores else None
+    if scores:
+        out.print(score_table(scores, reference=ref))
+    bad = [(e, d) for e, d in zip(run.ranking, diffs) if d]
+    for e, d in bad:
+        out.print(f"[red]rank {e.get('rank')} {escape(str(e.get('label')))} differs:[/] "
+                  + escape("; ".join(d)))
+    if args.no_margin:
+        out.print("--no-margin: numbers shown, not checked against the run")
+    elif not bad:
+        out.print(
+            f"[green]reproduced[/]: all {len(run.ranking)} ranked entries of {args.from_dir} "
+            "match ranking.json exactly (error index, RMS and max errors, torque, margin, steps)"
+        )
+    else:
+        out.print(f"{len(run.ranking) - len(bad)} of {len(run.ranking)} ranked entries reproduced")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    if args.json:
+        write_atomic(args.json, scores_json(scores))
+        out.print(f"wrote {args.json}")
+    if args.figures:
+        _score_figures(out, args.figures, prob, scores, kept)
+    return EXIT_FAILED if bad else EXIT_OK
+
+
+def _report(args: argparse.Namespace) -> int:
+    from rich.markup import escape
+
+    from .runreport import read_run, run_problem, write_report
+
+    run = read_run(args.run)
+    prob, notes = run_problem(run, args.problem)
+    out = _console_for(prob)
+    for n in notes:
+        out.print(f"[yellow]warning:[/] {escape(n)}")
+    with out.status("re-simulating the best plan and both baselines for the figures…"):
+        names = write_report(run, prob, notes)
+    out.print(f"wrote {args.run / 'report.md'} ({', '.join(names[1:])})")
     return EXIT_OK
 
 
@@ -336,9 +476,29 @@ def _compare(args: argparse.Namespace) -> int:
     if args.perturb < 0:
         print(f"tierplan: error: --perturb must be >= 0, got {args.perturb}", file=sys.stderr)
         return EXIT_INPUT
+    if not args.plans and not args.from_dir and not args.baselines:
+        print(
+            "tierplan: error: compare needs plan files, --from RUN or --baselines",
+            file=sys.stderr,
+        )
+        return EXIT_INPUT
     plans = [load_plan(p, prob.arm.joint_names) for p in args.plans]
     n = prob.arm.n
-    cands = [(pl.label, pl.compact(n), functools.partial(_tiered_for, pl)) for pl in plans]
+    cands: list = [(pl.label, pl.compact(n), functools.partial(_tiered_for, pl)) for pl in plans]
+    run = None
+    if args.from_dir is not None:
+        from .runreport import read_run, rebuild, roles
+
+        run = read_run(args.from_dir)
+        if run.record.get("problem_sha256") not in (None, prob.digest):
+            print(
+                f"tierplan: warning: {args.problem} differs from the problem of "
+                f"{args.from_dir}; comparing on {args.problem} as it is now",
+                file=sys.stderr,
+            )
+        picked = [e for e in roles(run) if e is not None]
+        picked += [e for e in run.ranking if e.get("source") == "hand" and e not in picked]
+        cands += [rebuild(e, run, prob) for e in picked]
     if args.baselines:
         b = prob.baseline
         op = osc_plan(prob, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
@@ -371,9 +531,24 @@ def _compare(args: argparse.Namespace) -> int:
             f"own noise seed each (draw seed {sp.seed}); the same plants for every plan."
         )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    text = json.dumps([r.to_dict() for r in results], indent=2) + "\n"
     if args.json:
-        write_atomic(args.json, json.dumps([r.to_dict() for r in results], indent=2) + "\n")
+        write_atomic(args.json, text)
         out.print(f"wrote {args.json}")
+    if run is not None:
+        write_atomic(run.path / "robustness.json", text)
+        out.print(f"wrote {run.path / 'robustness.json'} (for 'tierplan report {run.path}')")
+    if args.figures:
+        from .figures import margin_figure, plan_colors, robustness_figure, save
+
+        dicts = [r.to_dict() for r in results]
+        labels = [str(d["label"]) for d in dicts]
+        files = [args.figures / "fig-margin.png"]
+        save(margin_figure(dicts, plan_colors(labels), prob.scoring.min_margin), files[0])
+        if args.perturb:
+            files.append(args.figures / "fig-robustness.png")
+            save(robustness_figure(dicts), files[1])
+        out.print(f"figures: {', '.join(str(f) for f in files)}")
     return EXIT_OK
 
 
@@ -544,6 +719,11 @@ def _search(args: argparse.Namespace) -> int:
     out = _console_for(prob)
     result = _run_and_show(out, prob, settings, seeded)
     names = write_run(out_dir, prob, result, run_record(prob, settings, result))
+    if args.figures and result.ranked:
+        from .runreport import read_run, write_report
+
+        with out.status("drawing the report's figures…"):
+            names += write_report(read_run(out_dir), prob)
     return _finish(out, result, out_dir, names, "search")
 
 
@@ -644,10 +824,6 @@ def _swap(args: argparse.Namespace) -> int:
         out_dir, prob, result, run_record(prob, settings, result, swap=summary)
     )
     return _finish(out, result, out_dir, names_written, "swap search")
-
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
 
 
 def _fit(args: argparse.Namespace) -> int:
@@ -759,3 +935,7 @@ def _write_fit(args: argparse.Namespace, fit, out) -> None:  # type: ignore[no-u
     how = update_actuator(target, args.joint, fit.model, values, note, validate)
     shown = ", ".join(f"{k} = {v:g}" for k, v in values.items())
     out.print(escape(f"{how} {target}: [actuators.{args.joint}] model = {fit.model}, {shown}"))
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

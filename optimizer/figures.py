@@ -138,12 +138,19 @@ def torque_figure(
         for k in range(n_tiers):
             a.plot(ro.t, ro.tier_tau[:, k, j], color=TIER_COLORS[k % len(TIER_COLORS)], lw=0.9,
                    label=f"tier {k + 1}")
-        a.plot(ro.t, ro.tau_cmd[:, j], color=DATA, lw=1.2, label="command (sum, limited)")
+        a.plot(ro.t, ro.tau_cmd[:, j], color=DATA, lw=1.2,
+               label="command (tiers + model terms, limited)")
         lim = float(limits[j])
-        if math.isfinite(lim):
+        peak = float(max(np.abs(ro.tau_cmd[:, j]).max(), np.abs(ro.tier_tau[:, :, j]).max()))
+        top = max(1.25 * peak, 1e-9)
+        if math.isfinite(lim) and lim <= top:
             for s in (1.0, -1.0):
                 a.axhline(s * lim, color=OSC, ls="--", lw=0.8,
                           label="effort limit" if s > 0 else None)
+            top = 1.1 * lim
+        a.set_ylim(-top, top)
+        a.text(0.005, 0.04, f"limit ±{lim:.4g} N·m; peak {peak:.3g} N·m ({peak / lim:.0%})",
+               transform=a.transAxes, fontsize=7, color=OSC)
         a.set_ylabel(f"{name}\n[N·m]", fontsize=8)
         a.grid(True, alpha=0.3)
     ax[-1, 0].set_xlabel("time [s]")
@@ -275,9 +282,10 @@ def margin_figure(
     vals = [float(e["margin"]) if e.get("margin") is not None else 0.0 for e in entries]
     y = np.arange(len(entries))[::-1]
     a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
-    a.set_yticks(y, [f"{e.get('rank', '')}. {lb}" for e, lb in zip(entries, labels)], fontsize=8)
+    a.set_yticks(y, labels, fontsize=8)
     a.axvline(min_margin, color=DATA, ls="--", lw=1, label=f"min_margin {min_margin:g}")
     a.set_xlabel("stability margin = 1 − spectral radius [-]")
+    a.set_ylabel("ranked entry")
     a.grid(True, axis="x", alpha=0.3)
     a.legend(fontsize=8)
     a.set_title("stability margin of each ranked plan")
@@ -306,3 +314,47 @@ def save(fig: Figure, path: Any) -> None:
         plt.close(fig)
         if os.path.exists(tmp):
             os.unlink(tmp)
+
+
+def robustness_figure(results: Sequence[Mapping[str, Any]]) -> Figure:
+    """Error index on each perturbed plant per entry (``compare`` dicts with ``draws``)."""
+    fig, ax = _new(1, 1, 8.0, 0.45 * len(results) + 1.8)
+    a = ax[0, 0]
+    labels = [str(r["label"]) for r in results]
+    finite = [
+        float(d["error_index"])
+        for r in results
+        for d in r.get("draws", [])
+        if d.get("feasible") and d.get("error_index") is not None
+    ]
+    top = max(finite, default=1.0) * 1.15
+    first_plan = next((str(r["label"]) for r in results if r.get("kind") == "plan"), None)
+    role = {str(r["label"]): {"osc": "osc", "joint_space": "joint"}.get(str(r.get("kind")), "")
+            for r in results}
+    if first_plan:
+        role[first_plan] = "best"
+    colors = plan_colors(labels, role)
+    for i, r in enumerate(results):
+        y = len(results) - 1 - i
+        ok = [float(d["error_index"]) for d in r.get("draws", []) if d.get("feasible")]
+        bad = sum(1 for d in r.get("draws", []) if not d.get("feasible"))
+        a.plot(ok, [y] * len(ok), "o", ms=4, alpha=0.6, color=colors[labels[i]],
+               label="feasible plant" if i == 0 else None)
+        if bad:
+            a.annotate(f"{bad} infeasible", (top, y), xytext=(-6, 6), textcoords="offset points",
+                       ha="right", fontsize=7, color=OSC)
+            a.plot([top] * bad, [y] * bad, "x", ms=6, color=OSC,
+                   label="infeasible plant" if not any(
+                       not d.get("feasible") for q in results[:i] for d in q.get("draws", [])
+                   ) else None)
+        if r.get("error_index") is not None:
+            a.plot([float(r["error_index"])], [y], "|", ms=16, mew=2, color=DATA,
+                   label="nominal plant" if i == 0 else None)
+    a.set_yticks(np.arange(len(results))[::-1], labels, fontsize=8)
+    a.set_xlabel("error index [-]")
+    a.set_ylabel("entry")
+    a.grid(True, axis="x", alpha=0.3)
+    a.legend(fontsize=8)
+    a.set_title("error on perturbed plants")
+    fig.tight_layout()
+    return fig

@@ -24,6 +24,20 @@ SAFETY_SHORT = (
     "robot-safety standards (ISO 10218-1/-2), local codes and licensed practice."
 )
 
+#: The cautions in full (README and every report), after REFERENCES.md §8.
+SAFETY_FULL = """\
+Results come from simulation of models. Unmodelled friction, elasticity, backlash, sensor
+noise and delay can destabilise gains that pass here, and the tool certifies nothing:
+
+- First hardware trials at reduced speed (manual reduced speed is commonly 250 mm/s at the
+  tool), reduced gains, and torque and velocity limits switched on.
+- An emergency stop (ISO 13850) tested before the trial and within reach; nobody in the
+  workspace.
+- Follow the applicable robot-safety standards — ISO 10218-1:2025 and ISO 10218-2:2025
+  (which take in the collaborative-operation content of ISO/TS 15066), risk assessment per
+  ISO 12100, stop categories per IEC 60204-1 — local codes and licensed practice. A plan
+  from this tool does not replace a risk assessment by qualified people."""
+
 
 def fmt(x: float | None, digits: int = 3) -> str:
     """Number for a table: a dash for None or nan, 'inf' kept."""

@@ -7,7 +7,9 @@ progress goes through a callback; the caller shows the results.
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import json
+import os
 import platform
 import sys
 import time
@@ -241,6 +243,7 @@ def trial_rows(studies: dict[str, optuna.Study]) -> list[dict[str, Any]]:
                     "kind": kind,
                     "number": t.number,
                     "state": t.state.name,
+                    "feasible": srch.feasible(t),
                     "value": t.values[0] if t.values else None,
                     "value_2": t.values[1] if t.values and len(t.values) > 1 else None,
                     "constraint": (t.constraints or {}).get("margin"),
@@ -267,8 +270,11 @@ def run_record(
 
     return {
         "problem": str(problem.path),
+        "cwd": os.getcwd(),
         "problem_name": problem.name,
         "problem_sha256": problem.digest,
+        "urdf": str(problem.arm.source),
+        "urdf_sha256": hashlib.sha256(problem.arm.urdf_xml.encode("utf-8")).hexdigest(),
         "actuator_files": [str(a) for a in problem.actuator_files],
         "study": settings.study,
         "storage": settings.storage,

@@ -318,6 +318,7 @@ def objective(
         zeta = trial.suggest_float("zeta", *sp.zeta_range)
         ctrl = joint_controller(problem, kp, zeta, label="tuned joint-space CLIK + PD")
         trial.set_user_attr("tiers", 1)
+        trial.set_user_attr("joint_gains", {"kp": [float(x) for x in kp], "zeta": float(zeta)})
         return run(trial, ctrl, ctrl.label, joint_gains_text(kp, zeta))
 
     chosen = {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
@@ -624,6 +625,8 @@ def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
         if t.user_attrs.get("label"):
             e["label"] = t.user_attrs["label"]
         e["plan_toml"] = t.user_attrs.get("plan_toml")
+        if "joint_gains" in t.user_attrs:
+            e["joint_gains"] = t.user_attrs["joint_gains"]
         out.append(e)
     return sorted(out, key=lambda e: e["error_index"])
 

@@ -117,6 +117,9 @@ def test_swap_rescores_and_warm_starts_from_the_previous_run(tmp_path, monkeypat
         if p["now"]["feasible"]:
             assert p["now"]["error_index"] != p["error_index_before"]
     assert "best_now" in rec["swap"] and isinstance(rec["swap"]["moved"], list)
+    assert main(["report", str(new_dirs[0])]) == 0  # the report says what the swap changed
+    text = (new_dirs[0] / "report.md").read_text()
+    assert "## After the actuator swap" in text and str(f) in text
 
 
 @pytest.mark.slow

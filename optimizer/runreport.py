@@ -1,0 +1,486 @@
+"""A search run read back from its folder: candidates rebuilt, numbers reproduced, report.md.
+
+A run folder (``results/<problem>/<study>``) holds ``run.json``, ``ranking.json``,
+``trials.csv`` and ``plans/rank-NN.toml``; ``robustness.json`` appears when
+``compare --from`` ran on it. Everything here reads those files and the problem file
+named in ``run.json``; nothing prints.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from .compare import Candidate
+from .evaluate import Score, evaluate, joint_controller, joint_gains_text, plan_controller
+from .exceptions import InputError
+from .plan import load_plan
+from .problem import Problem, load_problem
+from .report import SAFETY_FULL, change, fmt, write_atomic
+from .simulate import Rollout
+
+#: Figures of a ranked entry that ``score --from`` must reproduce exactly.
+REPRODUCED = (
+    "error_index",
+    "pos_rms_mm",
+    "rot_rms_deg",
+    "pos_max_mm",
+    "rot_max_deg",
+    "tau_rms_nm",
+    "peak_torque_ratio",
+    "margin",
+    "steps",
+)
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    """The files of one search run."""
+
+    path: Path
+    """The run folder."""
+    record: dict[str, Any]
+    """run.json."""
+    ranking: list[dict[str, Any]]
+    """ranking.json entries, best first."""
+    trials: list[dict[str, str]]
+    """trials.csv rows."""
+    robustness: list[dict[str, Any]] | None
+    """robustness.json (``compare --from``), or None."""
+
+
+def _json(path: Path) -> Any:
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError as err:
+        raise InputError(path, "", "not found: give a search's results folder") from err
+    except (OSError, ValueError) as err:
+        raise InputError(path, "", f"could not be read as JSON: {err}") from err
+
+
+def read_run(path: Path) -> RunFolder:
+    """Read a run folder; a missing or unreadable file is an InputError naming it."""
+    path = Path(path)
+    if not path.is_dir():
+        raise InputError(path, "", "is not a folder: give a search's results folder")
+    record = _json(path / "run.json")
+    ranking = _json(path / "ranking.json")
+    if not isinstance(record, dict):
+        raise InputError(path / "run.json", "", "must hold a JSON object")
+    if not isinstance(ranking, list) or not all(isinstance(e, dict) for e in ranking):
+        raise InputError(path / "ranking.json", "", "must hold a list of ranked entries")
+    trials: list[dict[str, str]] = []
+    if (path / "trials.csv").is_file():
+        with open(path / "trials.csv", newline="", encoding="utf-8") as f:
+            trials = list(csv.DictReader(f))
+    rob = _json(path / "robustness.json") if (path / "robustness.json").is_file() else None
+    return RunFolder(path, record, ranking, trials, rob)
+
+
+def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Problem, list[str]]:
+    """The run's problem (with its actuator files), and warnings when it changed since."""
+    rec = run.record
+    notes: list[str] = []
+    if problem_path is None:
+        given = rec.get("problem")
+        if not given:
+            raise InputError(run.path / "run.json", "problem", "missing; give --problem FILE")
+        cand = Path(given)
+        if not cand.is_absolute() and not cand.is_file() and rec.get("cwd"):
+            cand = Path(rec["cwd"]) / given
+        problem_path = cand
+    acts = [Path(a) for a in rec.get("actuator_files") or []]
+    acts = [a if a.is_file() or not rec.get("cwd") else Path(rec["cwd"]) / a for a in acts]
+    problem = load_problem(problem_path, actuator_files=acts)
+    if rec.get("problem_sha256") and rec["problem_sha256"] != problem.digest:
+        notes.append(
+            f"{problem_path} (or its URDF or actuator files) changed since the run: the "
+            "numbers below come from the files as they are now"
+        )
+    return problem, notes
+
+
+def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidate:
+    """The candidate (label, plan text, controller factory) of one ranked entry."""
+    where = run.path / "ranking.json"
+    key = f"[rank {entry.get('rank')}]"
+    label = str(entry.get("label", ""))
+    if entry.get("kind") == "joint_space":
+        g = entry.get("joint_gains")
+        if not isinstance(g, dict) or "kp" not in g or "zeta" not in g:
+            raise InputError(
+                where,
+                f"{key}.joint_gains",
+                "missing: this run predates exact joint gains in ranking.json; search again",
+            )
+        kp, zeta = [float(x) for x in g["kp"]], float(g["zeta"])
+
+        def make_joint(p: Problem) -> Any:
+            return joint_controller(p, kp, zeta, label=label)
+
+        return label, joint_gains_text(tuple(kp), zeta), make_joint
+    f = run.path / "plans" / f"rank-{int(entry.get('rank', 0)):02d}.toml"
+    if not f.is_file():
+        raise InputError(f, "", f"missing: the plan of {key} in {where}")
+    plan = load_plan(f, problem.arm.joint_names)
+    kind = "osc" if entry.get("kind") == "osc" else "plan"
+
+    def make_plan(p: Problem) -> Any:
+        return plan_controller(p, plan, kind=kind)
+
+    return label, plan.compact(problem.arm.n), make_plan
+
+
+def rescore(
+    problem: Problem,
+    cand: Candidate,
+    keep: list[Rollout] | None = None,
+    compute_margin: bool = True,
+) -> Score:
+    """Score a rebuilt candidate on ``problem`` (the same call the search made)."""
+    label, text, make = cand
+    return evaluate(
+        problem, make(problem), label, text, compute_margin=compute_margin, keep_rollouts=keep
+    )
+
+
+def mismatches(entry: dict[str, Any], score: Score) -> list[str]:
+    """Figures where a re-score differs from the ranked entry (empty: reproduced exactly)."""
+    now = json.loads(json.dumps(score.to_dict()))
+    out = []
+    for k in REPRODUCED:
+        a, b = entry.get(k), now.get(k)
+        if a != b:
+            out.append(f"{k} {fmt(a, 6)} → {fmt(b, 6)}")
+    return out
+
+
+# -- the report ----------------------------------------------------------------------
+def roles(run: RunFolder) -> tuple[dict | None, dict | None, dict | None]:
+    """(best plan, tuned OSC, tuned joint-space) entries of the ranking."""
+    best = next((e for e in run.ranking if e.get("kind") == "plan"), None)
+    osc = next((e for e in run.ranking if e.get("kind") == "osc"), None)
+    joint = next((e for e in run.ranking if e.get("kind") == "joint_space"), None)
+    return best, osc, joint
+
+
+def _name(e: dict) -> str:
+    return f"#{e.get('rank')} {e.get('label')}"
+
+
+def rollout_figures(
+    out_dir: Path,
+    problem: Problem,
+    series: Sequence[tuple[str, str, Sequence[Rollout]]],
+    prefix: str = "fig-",
+) -> list[tuple[str, str]]:
+    """Error-over-time, torque-per-tier and spectrum PNGs; returns (file name, caption).
+
+    ``series`` holds (label, role, rollouts) with role ``best``, ``osc``, ``joint`` or
+    ``""``. The torque figure is drawn for the first tiered entry (role ``best`` first), the
+    spectrum for it against single-tier OSC when there is one.
+    """
+    from . import figures as fg
+
+    colors = fg.plan_colors([s[0] for s in series], {s[0]: s[1] for s in series})
+    figs: list[tuple[str, str]] = []
+
+    def put(fig: Any, name: str, caption: str) -> None:
+        fg.save(fig, out_dir / name)
+        figs.append((name, caption))
+
+    if not series:
+        return figs
+    names = problem.arm.joint_names
+    put(
+        fg.error_figure([(s[0], s[2]) for s in series], colors),
+        f"{prefix}error.png",
+        "Tip position and orientation error over time, one row per trajectory.",
+    )
+    tiered = sorted(
+        (s for s in series if s[2] and s[2][0].tier_tau.shape[1] > 0 and s[1] != "joint"),
+        key=lambda s: s[1] != "best",
+    )
+    if tiered:
+        label, _, rollouts = tiered[0]
+        worst = max(rollouts, key=lambda ro: float(abs(ro.tau_cmd).max(initial=0.0)))
+        limits = [a.effort_nm for a in problem.actuators]
+        put(
+            fg.torque_figure(worst, names, limits, f"{label}: torque per tier on '{worst.name}'"),
+            f"{prefix}torque.png",
+            f"Torque of each tier and the command per joint for {label} on '{worst.name}' "
+            "(the trajectory with its largest torque); effort limits dashed where in range.",
+        )
+        pick = [(label, rollouts)] + [(s[0], s[2]) for s in series if s[1] == "osc"][:1]
+        put(
+            fg.spectrum_figure(
+                pick, colors, names, [a.model.bandwidth_hz() for a in problem.actuators],
+                problem.dt,
+            ),
+            f"{prefix}spectrum.png",
+            "Spectrum of each joint's commanded torque against that actuator's −3 dB "
+            "bandwidth (dashed): where the high-frequency effort went.",
+        )
+    return figs
+
+
+def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) -> list[str]:
+    """Write report.md and its PNGs into the run folder; returns the file names written."""
+    from . import figures as fg
+
+    best, osc, joint = roles(run)
+    series: list[tuple[str, str, Sequence[Rollout]]] = []
+    for e, role in ((best, "best"), (osc, "osc"), (joint, "joint")):
+        if e is None:
+            continue
+        keep: list[Rollout] = []
+        rescore(problem, rebuild(e, run, problem), keep, compute_margin=False)
+        series.append((_name(e), role, keep))
+    figs = rollout_figures(run.path, problem, series)
+
+    def put(fig: Any, name: str, caption: str) -> None:
+        fg.save(fig, run.path / name)
+        figs.append((name, caption))
+
+    if run.trials:
+        put(
+            fg.history_figure(
+                run.trials, {"plan": fg.BEST, "osc": fg.OSC, "joint_space": fg.JOINT}
+            ),
+            "fig-history.png",
+            "Best feasible error index so far against trial number, per study.",
+        )
+    objectives = list(run.record.get("objectives") or ["error"])
+    if len(objectives) > 1 and run.trials:
+        put(
+            fg.pareto_figure(run.trials, objectives[1], best.get("trial") if best else None),
+            "fig-pareto.png",
+            f"Feasible plan trials, error index against {objectives[1]}; the Pareto front "
+            "and the best-error plan (star).",
+        )
+    ranked = [e for e in run.ranking if e.get("margin") is not None]
+    if ranked:
+        roles_of = {_name(e): r for e, r in ((best, "best"), (osc, "osc"), (joint, "joint")) if e}
+        colors = fg.plan_colors([_name(e) for e in run.ranking], roles_of)
+        put(
+            fg.margin_figure(
+                [{**e, "label": _name(e)} for e in ranked], colors, problem.scoring.min_margin
+            ),
+            "fig-margin.png",
+            "Stability margin (1 − spectral radius of the linearised loop) of each ranked "
+            "entry; below the dashed line a plan is rejected.",
+        )
+    if run.robustness:
+        rob = run.robustness
+        put(
+            fg.robustness_figure(rob),
+            "fig-robustness.png",
+            "Error index of each entry on every perturbed plant; crosses at the top are "
+            "plants on which it was infeasible.",
+        )
+    write_atomic(run.path / "report.md", report_text(run, problem, figs, notes))
+    return ["report.md"] + [f for f, _ in figs]
+
+
+def problem_paragraph(problem: Problem, record: dict[str, Any]) -> str:
+    """The problem in a paragraph."""
+    acts = problem.actuators
+    bw = sorted((a.model.bandwidth_hz(), a.joint) for a in acts)
+    dl = [a.delay_ticks for a in acts]
+    trajs = ", ".join(f"'{r.name}' ({r.t[-1]:.3g} s)" for r in problem.references)
+    axes = " ".join(("x", "y", "z", "rx", "ry", "rz")[i] for i in problem.control.task_axes)
+    d = problem.arm.deviation
+    c = problem.control
+    return (
+        f"Problem **{problem.name}** (`{record.get('problem', problem.path)}`): an arm of "
+        f"{problem.arm.n} joints ({', '.join(problem.arm.joint_names)}), tip frame "
+        f"`{problem.arm.tip_frame}`, controlled at {c.rate_hz:g} Hz on task axes "
+        f"{axes}. Actuator torque bandwidths range from {bw[0][0]:.3g} Hz "
+        f"({bw[0][1]}) to {bw[-1][0]:.3g} Hz ({bw[-1][1]}); delay "
+        f"{'–'.join(str(x) for x in sorted({min(dl), max(dl)}))} control period(s). "
+        f"The simulated plant differs from the controller's model by a "
+        f"{d.payload_kg:g} kg payload and mass scale {d.mass_scale:g}, with velocity noise "
+        f"σ {problem.sim.velocity_noise:g} rad/s. Trajectories: {trajs}; the error index is "
+        f"the {problem.scoring.aggregate} over trajectories of position RMS / "
+        f"{problem.scoring.pos_scale_mm:g} mm + orientation RMS / "
+        f"{problem.scoring.rot_scale_deg:g}° (weighted). Search: "
+        f"{record.get('trials')} plan trials and {record.get('baseline_trials')} per baseline, "
+        f"seed {record.get('seed')}, {record.get('workers')} worker(s), objectives "
+        f"{', '.join(record.get('objectives') or ['error'])}, {record.get('elapsed_s')} s."
+    )
+
+
+def ranking_markdown(ranking: Sequence[dict[str, Any]]) -> str:
+    """The ranked table as Markdown (the numbers of ranking.json, 3 significant digits)."""
+    front = any("pareto" in e for e in ranking)
+    cols = [
+        "rank",
+        "entry",
+        "source",
+        "tiers",
+        "pos RMS [mm]",
+        "rot RMS [deg]",
+        "τ RMS [N·m]",
+        "peak τ / limit",
+        "margin",
+        "error index",
+        "vs tuned OSC",
+        "vs tuned joint",
+    ] + (["Pareto"] if front else [])
+    lines = ["| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
+    osc = next((e for e in ranking if e.get("kind") == "osc"), None)
+    joint = next((e for e in ranking if e.get("kind") == "joint_space"), None)
+    for e in ranking:
+        row = [
+            str(e.get("rank")),
+            str(e.get("label")).replace("|", "/"),
+            str(e.get("source")),
+            str(e.get("tiers")),
+            fmt(e.get("pos_rms_mm")),
+            fmt(e.get("rot_rms_deg")),
+            fmt(e.get("tau_rms_nm")),
+            fmt(e.get("peak_torque_ratio")),
+            fmt(e.get("margin")),
+            fmt(e.get("error_index")),
+            change(e.get("error_index"), osc.get("error_index") if osc else None),
+            change(e.get("error_index"), joint.get("error_index") if joint else None),
+        ]
+        if front:
+            row.append("yes" if e.get("pareto") else "")
+        lines.append("| " + " | ".join(row) + " |")
+    return "\n".join(lines)
+
+
+def report_text(
+    run: RunFolder,
+    problem: Problem,
+    figs: Sequence[tuple[str, str]],
+    notes: Sequence[str] = (),
+) -> str:
+    """The report's Markdown."""
+    rec = run.record
+    best, osc, joint = roles(run)
+    out = [
+        f"# Tier plans for {problem.name}, study '{rec.get('study')}'",
+        "",
+        "> **Simulation only.** These results come from simulation of models; read the "
+        "safety section at the end before any plan goes near hardware.",
+        "",
+    ]
+    out += [f"> Note: {n}" for n in notes] + ([""] if notes else [])
+    out += ["## Problem", "", problem_paragraph(problem, rec), ""]
+    out += ["## Result", ""]
+    if best is not None:
+        sent = (
+            f"The best plan, {best.get('label')} ({best.get('tiers')} tiers: "
+            f"`{best.get('plan_text')}`), reaches an error index of {fmt(best['error_index'])} "
+            f"({fmt(best.get('pos_rms_mm'))} mm, {fmt(best.get('rot_rms_deg'))}° RMS)"
+        )
+        comp = []
+        for e, what in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
+            if e is not None and e.get("error_index"):
+                rel = (best["error_index"] / e["error_index"] - 1.0) * 100.0
+                comp.append(
+                    f"{abs(rel):.0f} % {'below' if rel < 0 else 'above'} {what} "
+                    f"({fmt(e['error_index'])}: {fmt(e.get('pos_rms_mm'))} mm, "
+                    f"{fmt(e.get('rot_rms_deg'))}°)"
+                )
+        out.append(sent + (": " + "; ".join(comp) if comp else "") + ".")
+        out.append("")
+        out.append(
+            f"Its stability margin is {fmt(best.get('margin'))} (threshold "
+            f"{problem.scoring.min_margin:g}); its peak command is "
+            f"{fmt(best.get('peak_torque_ratio'))} of the effort limit."
+        )
+    else:
+        out.append("No feasible tier plan was found.")
+    out += ["", "## Ranking", "", ranking_markdown(run.ranking), ""]
+    out += ["Plans (`[joints] t = kp_t, r = kp_r` [1/s²], `z` = ζ):", ""]
+    out += [f"{e.get('rank')}. {e.get('label')}: `{e.get('plan_text')}`" for e in run.ranking]
+    out += ["", "## Figures", ""]
+    for name, caption in figs:
+        out += [f"![{name}]({name})", "", caption, ""]
+    out += ["## Robustness", ""]
+    if run.robustness:
+        out.append(robustness_markdown(run.robustness))
+    else:
+        out.append(
+            "Not run. `tierplan compare --from <this folder> --perturb 20` scores the ranked "
+            "plans on perturbed plants and adds the figures here."
+        )
+    out.append("")
+    swap = rec.get("swap")
+    if swap:
+        out += ["## After the actuator swap", "", swap_markdown(swap), ""]
+    out += ["## Safety", "", SAFETY_FULL, ""]
+    out += [
+        "## Reproduce",
+        "",
+        f"`tierplan score --from {run.path}` re-simulates every ranked entry and checks the "
+        "numbers above. Versions: "
+        + ", ".join(f"{k} {v}" for k, v in (rec.get("versions") or {}).items())
+        + f". Problem SHA-256 `{rec.get('problem_sha256')}`; URDF SHA-256 "
+        f"`{rec.get('urdf_sha256')}`.",
+        "",
+    ]
+    return "\n".join(out)
+
+
+def robustness_markdown(rob: Sequence[dict[str, Any]]) -> str:
+    """The compare --perturb figures as Markdown."""
+    n = max((int(r.get("perturbed") or 0) for r in rob), default=0)
+    lines = [
+        f"On the nominal plant and {n} perturbed plants (the same plants for every entry):",
+        "",
+        "| entry | nominal error | mean error | p90 error | worst error | feasible share |",
+        "|---|---|---|---|---|---|",
+    ]
+    for r in rob:
+        share = r.get("feasible_fraction")
+        lines.append(
+            f"| {r.get('label')} | {fmt(r.get('error_index'))} | {fmt(r.get('mean_error'))} | "
+            f"{fmt(r.get('p90_error'))} | {fmt(r.get('worst_error'))} | "
+            + (f"{share:.0%}" if isinstance(share, float) and math.isfinite(share) else "–")
+            + " |"
+        )
+    return "\n".join(lines)
+
+
+def swap_markdown(swap: dict[str, Any]) -> str:
+    """What changed after a swap (run.json's ``swap`` section)."""
+    lines = [
+        f"Actuator files {', '.join(swap.get('actuator_files') or [])} applied to the run in "
+        f"`{swap.get('from')}`.",
+        "",
+    ]
+    if swap.get("best_now") is not None:
+        before, now = swap.get("best_before"), swap["best_now"]
+        lines.append(
+            f"Best plan before: `{swap.get('best_plan_before')}` (error index {fmt(before)}); "
+            f"now: `{swap.get('best_plan_now')}` (error index {fmt(now)}"
+            + (f", {change(now, before)}" if before else "")
+            + ")."
+        )
+        lines.append("")
+        lines.append(
+            "Joints that moved between tiers: " + ("; ".join(swap.get("moved") or []) or "none")
+        )
+    prev = swap.get("previous_plans") or []
+    if prev:
+        lines += [
+            "",
+            "| earlier plan | error before | error now | feasible now |",
+            "|---|---|---|---|",
+        ]
+        for p in prev:
+            now = p.get("now") or {}
+            lines.append(
+                f"| {p.get('label')} | {fmt(p.get('error_index_before'))} | "
+                f"{fmt(now.get('error_index'))} | {'yes' if now.get('feasible') else 'no'} |"
+            )
+    return "\n".join(lines)
