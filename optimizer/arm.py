@@ -9,6 +9,7 @@ makes tracking error honest (``DESIGN.md``, "What makes the simulation honest").
 from __future__ import annotations
 
 import logging
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -185,14 +186,61 @@ def _ro(a: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Largest URDF file read [bytes]; a kinematic model is a few hundred kB at most.
+MAX_URDF_BYTES = 8 * 1024 * 1024
+_DECLARATION = re.compile(r"<!\s*(DOCTYPE|ENTITY)", re.IGNORECASE)
+
+
 def read_urdf(path: Path, key: str, problem_path: object) -> str:
-    """Read a URDF file's text; a missing or unreadable file is a ProblemError."""
+    """Read a URDF file as untrusted XML; return the text pinocchio may see.
+
+    Refused before any parser runs: files over ``MAX_URDF_BYTES`` and any document type
+    or entity declaration (entity expansion, external entities). ``<visual>`` and
+    ``<collision>`` elements are dropped, so no mesh path the file names is ever opened
+    (the tool needs no geometry). Every refusal is a ProblemError naming the file.
+    """
     try:
-        return path.read_text(encoding="utf-8")
+        size = path.stat().st_size
+        if size > MAX_URDF_BYTES:
+            raise ProblemError(
+                problem_path,
+                key,
+                f"URDF file {path} is {size / 2**20:.1f} MiB; the limit is "
+                f"{MAX_URDF_BYTES / 2**20:.0f} MiB (a kinematic model needs far less)",
+            )
+        with open(path, "rb") as f:
+            raw = f.read(MAX_URDF_BYTES + 1)
+        text = raw.decode("utf-8")
     except FileNotFoundError as err:
         raise ProblemError(problem_path, key, f"URDF file not found: {path}") from err
     except (OSError, UnicodeDecodeError) as err:
         raise ProblemError(problem_path, key, f"URDF file {path} could not be read: {err}") from err
+    return sanitize_urdf(text, f"URDF file {path}", key, problem_path)
+
+
+def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
+    """Refuse declarations, check well-formedness, drop visual/collision elements."""
+    import xml.etree.ElementTree as ET
+
+    if _DECLARATION.search(text):
+        raise ProblemError(
+            problem_path,
+            key,
+            f"{what} has a <!DOCTYPE> or <!ENTITY> declaration; these are refused "
+            "(entity expansion, external entities): remove it",
+        )
+    try:
+        root = ET.fromstring(text)
+    except ET.ParseError as err:
+        raise ProblemError(problem_path, key, f"{what} is not well-formed XML: {err}") from err
+    if root.tag != "robot":
+        raise ProblemError(
+            problem_path, key, f"{what}: the root element is <{root.tag}>, not <robot>"
+        )
+    for parent in root.iter():
+        for child in [c for c in parent if c.tag in ("visual", "collision")]:
+            parent.remove(child)
+    return ET.tostring(root, encoding="unicode")
 
 
 def link_inertials(urdf_xml: str) -> dict[str, pin.Inertia]:
