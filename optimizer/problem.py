@@ -291,12 +291,12 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
 
     tp = root.table("plant")
     dev_args: dict[str, Any] = {}
-    dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0)
+    dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0, max_value=10_000.0)
     dev_args["payload_offset_m"] = tp.floats("payload_offset_m", (0.0, 0.0, 0.0), length=3)
     dev_args["payload_radius_m"] = tp.float(
         "payload_radius_m", 0.03, min_value=0.0, strict_min=True
     )
-    dev_args["mass_scale"] = tp.float("mass_scale", 1.0, min_value=0.0, strict_min=True)
+    dev_args["mass_scale"] = tp.float("mass_scale", 1.0, min_value=0.0, max_value=100.0, strict_min=True)
     tl = tp.table("link_mass_scale")
     lms = {k: tl.float(k, min_value=0.0, strict_min=True) for k in list(tl.data)}
     tl.done()
@@ -311,7 +311,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     act_specs = []
     armature = np.zeros(len(names))
     control_tab = root.table("control", required=True)
-    rate = control_tab.float("rate_hz", min_value=0.0, strict_min=True)
+    rate = control_tab.float("rate_hz", min_value=MIN_RATE_HZ, max_value=MAX_RATE_HZ)
     for key in list(tacts.data):
         if key != "default" and key not in names:
             raise ProblemError(
@@ -421,7 +421,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     axes = tuple(sorted(AXES.index(a) for a in axes_names))
     ns = _per_joint(control_tab, "null_stiffness_nm_per_rad", n, 0.0)
     nd = _per_joint(control_tab, "null_damping_nms_per_rad", n, 0.0)
-    lam = control_tab.float("tier_damping", 1e-4, min_value=0.0)
+    lam = control_tab.float("tier_damping", 1e-4, min_value=0.0, max_value=1e3)
     control_tab.done()
     control = ControlSettings(
         rate_hz=rate, task_axes=axes, null_stiffness=ns, null_damping=nd, tier_damping=lam
@@ -431,9 +431,9 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     tsense = root.table("sensing")
     sim = SimSettings(
         substeps=tsim.int("substeps", 1, min_value=1, max_value=100),
-        velocity_noise=tsense.float("velocity_noise_rad_s", 0.0, min_value=0.0),
+        velocity_noise=tsense.float("velocity_noise_rad_s", 0.0, min_value=0.0, max_value=100.0),
         seed=tsense.int("seed", 0, min_value=0),
-        max_error_m=tsim.float("max_error_m", 0.2, min_value=0.0, strict_min=True),
+        max_error_m=tsim.float("max_error_m", 0.2, min_value=0.0, max_value=100.0, strict_min=True),
         pinned_s=tsim.float("pinned_s", 0.2, min_value=0.0, strict_min=True),
         margin_samples=tsim.int("margin_samples", 3, min_value=1, max_value=50),
     )
@@ -482,6 +482,14 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         if s.name in seen:
             raise ProblemError(path, f"trajectory[{i}].name", f"name '{s.name}' is used twice")
         seen.add(s.name)
+        ticks = s.duration_s * rate
+        if ticks > MAX_TICKS:
+            raise ProblemError(
+                path,
+                f"trajectory[{i}].duration_s",
+                f"{s.duration_s:g} s at {rate:g} Hz is {ticks:.3g} control periods; the limit "
+                f"is {MAX_TICKS:.0e} per trajectory (shorten it or lower control.rate_hz)",
+            )
     search = _read_search(root.table("search"), names)
     tpert = root.table("perturb")
     perturb = PerturbSpread(
@@ -678,6 +686,12 @@ def _read_kind(t: TableReader, kind: str, allowed: Sequence[str], base: Path, pa
         msg = str(err)
         key = next((f.name for f in dataclasses.fields(cls) if msg.startswith(f.name)), "kind")
         raise t.fail(key, msg) from err
+
+
+#: Control rates the simulator accepts [Hz], and the most control periods per trajectory.
+MIN_RATE_HZ = 10.0
+MAX_RATE_HZ = 100_000.0
+MAX_TICKS = 2_000_000
 
 
 def _read_trajectory(t: TableReader, base: Path, path: Path) -> TrajectorySpec:
