@@ -117,3 +117,73 @@ def test_ctrl_c_writes_the_ranking_so_far_and_says_so(tmp_path) -> None:
     again = subprocess.run(_command(n), cwd=tmp_path, capture_output=True, text=True)
     assert again.returncode == 0, again.stderr
     _check_whole(_study(tmp_path), n, before)
+
+
+def _files_whole(out: Path) -> int:
+    """Every result file present parses whole (JSON, CSV, plan TOML); returns how many."""
+    import csv
+
+    from optimizer.tomlio import tomllib
+
+    n = 0
+    for name in ("ranking.json", "run.json"):
+        if (out / name).exists():
+            json.loads((out / name).read_text())
+            n += 1
+    for name in ("ranking.csv", "trials.csv"):
+        if (out / name).exists():
+            rows = list(csv.reader((out / name).open(newline="")))
+            assert rows and all(len(r) == len(rows[0]) for r in rows), name
+            n += 1
+    for f in (out / "plans").glob("rank-*.toml") if (out / "plans").is_dir() else []:
+        tomllib.loads(f.read_text())
+        n += 1
+    if (out / "best-plan.toml").exists():
+        tomllib.loads((out / "best-plan.toml").read_text())
+        n += 1
+    return n
+
+
+def _kill_loop(tmp_path: Path, cycles: int, seed: int) -> None:
+    import random
+
+    rng = random.Random(seed)
+    out = tmp_path / "results" / "planar3" / "k"
+    before: dict[int, tuple] = {}
+    for _ in range(cycles):
+        proc = subprocess.Popen(
+            _command(16), cwd=tmp_path, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+            start_new_session=True,
+        )  # fmt: skip
+        time.sleep(rng.uniform(0.3, 7.0))  # start-up, trials, ranking or file writing
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass  # it had finished
+        proc.wait()
+        _wait_group_gone(proc.pid)
+        study = _study(tmp_path)
+        if study is not None:
+            trials = study.get_trials()
+            numbers = [t.number for t in trials]
+            assert len(set(numbers)) == len(numbers)  # no trial number twice
+            now = _snapshot(study)
+            for n, v in before.items():  # nothing finished is lost or changed
+                assert now[n] == v, n
+            before = now
+        _files_whole(out)
+    again = subprocess.run(_command(16), cwd=tmp_path, capture_output=True, text=True)
+    assert again.returncode == 0, again.stderr
+    _check_whole(_study(tmp_path), 16, before)
+    assert _files_whole(out) >= 5
+
+
+def test_kills_at_random_moments_lose_nothing(tmp_path) -> None:
+    """SIGKILL at seeded random moments, 3 times, then resume: storage and files stay whole."""
+    _kill_loop(tmp_path, 3, seed=1)
+
+
+@pytest.mark.slow
+def test_many_kills_at_random_moments_lose_nothing(tmp_path) -> None:
+    """The same with 20 kills."""
+    _kill_loop(tmp_path, 20, seed=2)

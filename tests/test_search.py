@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import optuna
 import pytest
 from problems import PLANAR, PLANAR_PLANS
@@ -178,3 +179,31 @@ def test_search_gets_near_the_enumerated_best_of_a_tiny_space(planar) -> None:
     ]
     print(f"evals to within 5 % (budget {budget} of {len(values)}): TPE {tpe}, random {rnd}")
     assert all(n is not None and n <= budget for n in tpe), tpe
+
+
+@pytest.mark.parametrize(
+    "fault",
+    [np.linalg.LinAlgError("Singular matrix"), FloatingPointError("NaN in the rollout")],
+    ids=["singular", "nan"],
+)
+def test_a_faulty_candidate_fails_with_its_reason_and_the_search_goes_on(
+    planar, tmp_path, monkeypatch, fault
+) -> None:
+    """A numerical fault inside one trial marks that trial failed with the reason; the rest run."""
+    real = srch.evaluate
+    calls = {"n": 0}
+
+    def flaky(*a, **kw):
+        calls["n"] += 1
+        if calls["n"] == 3:
+            raise fault
+        return real(*a, **kw)
+
+    monkeypatch.setattr(srch, "evaluate", flaky)
+    study = srch.run_search(planar, str(tmp_path / "f.journal"), "f", "osc", 6, seed=5)
+    trials = study.get_trials()
+    failed = [t for t in trials if t.state.name == "FAIL"]
+    assert len(failed) == 1
+    assert failed[0].user_attrs["reason"] == f"error: {type(fault).__name__}: {fault}"
+    later = [t for t in trials if t.number > failed[0].number]
+    assert later and all(t.state.name in ("COMPLETE", "PRUNED") for t in later)
