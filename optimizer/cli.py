@@ -215,7 +215,20 @@ def _parser() -> argparse.ArgumentParser:
 
 def _search_options(r: argparse.ArgumentParser, study_default: str | None) -> None:
     """Options shared by ``search`` and ``swap``."""
-    r.add_argument("--trials", type=int, help="plan trials in the study (default: [search] trials)")
+    r.add_argument(
+        "--trials",
+        type=int,
+        help="plan trials the study is brought up to (default: [search] trials); the same "
+        "command again resumes",
+    )
+    r.add_argument(
+        "--worker-trials",
+        type=int,
+        metavar="N",
+        help="instead of --trials: run exactly N plan trials in this process, on top of what "
+        "the study holds (several hosts on one database: the study gets the sum); "
+        "0 runs none and writes the ranking of what the studies hold",
+    )
     r.add_argument(
         "--baseline-trials",
         type=int,
@@ -567,17 +580,22 @@ def _joint_for(kp, zeta, problem):  # type: ignore[no-untyped-def]
 def _budgets(args: argparse.Namespace, prob) -> tuple[int, int, int] | None:  # type: ignore[no-untyped-def]
     """trials, baseline trials, seed from the options and the problem; None after an error."""
     sp = prob.search
-    trials = args.trials if args.trials is not None else sp.trials
+    add = getattr(args, "worker_trials", None) is not None
+    if add and args.trials is not None:
+        print("tierplan: error: give --trials or --worker-trials, not both", file=sys.stderr)
+        return None
+    trials = args.worker_trials if add else args.trials if args.trials is not None else sp.trials
     btrials = args.baseline_trials if args.baseline_trials is not None else trials
     seed = args.seed if args.seed is not None else sp.seed
-    for name, v in (
-        ("--trials", trials),
-        ("--baseline-trials", btrials),
-        ("--workers", args.workers),
-        ("--top", args.top),
+    least = 0 if add else 1
+    for name, v, lo in (
+        ("--worker-trials" if add else "--trials", trials, least),
+        ("--baseline-trials", btrials, least),
+        ("--workers", args.workers, 1),
+        ("--top", args.top, 1),
     ):
-        if v < 1:
-            print(f"tierplan: error: {name} must be >= 1, got {v}", file=sys.stderr)
+        if v < lo:
+            print(f"tierplan: error: {name} must be >= {lo}, got {v}", file=sys.stderr)
             return None
     return trials, btrials, seed
 
@@ -703,6 +721,7 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
         prune=not args.no_prune,
         top=args.top,
         objectives=objectives,
+        add=getattr(args, "worker_trials", None) is not None,
     )
 
 
@@ -760,7 +779,14 @@ def _swap(args: argparse.Namespace) -> int:
         args.baseline_trials = int(old_run["baseline_trials"])
     if args.seed is None and old_run.get("seed") is not None:
         args.seed = int(old_run["seed"])
-    settings = _settings(args, prob, storage_default=old_run.get("storage"))
+    old_storage = old_run.get("storage")
+    if old_storage and "***" in str(old_storage) and not args.storage:
+        raise InputError(
+            from_dir / "run.json",
+            "storage",
+            "the earlier run's storage URL is kept without its password: give --storage",
+        )
+    settings = _settings(args, prob, storage_default=old_storage)
     if settings is None:
         return EXIT_INPUT
     seeded = previous_plans(from_dir, prob, args.top)

@@ -296,7 +296,9 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     dev_args["payload_radius_m"] = tp.float(
         "payload_radius_m", 0.03, min_value=0.0, strict_min=True
     )
-    dev_args["mass_scale"] = tp.float("mass_scale", 1.0, min_value=0.0, max_value=100.0, strict_min=True)
+    dev_args["mass_scale"] = tp.float(
+        "mass_scale", 1.0, min_value=0.0, max_value=100.0, strict_min=True
+    )
     tl = tp.table("link_mass_scale")
     lms = {k: tl.float(k, min_value=0.0, strict_min=True) for k in list(tl.data)}
     tl.done()

@@ -74,6 +74,9 @@ class RunSettings:
     """Optimised plans kept in the ranking (hand and previous plans are always kept)."""
     objectives: tuple[str, ...] = ("error",)
     """``("error",)`` or ``("error", "margin" | "effort")`` for the plan study."""
+    add: bool = False
+    """``trials`` and ``baseline_trials`` are run by this process on top of what the studies
+    hold (many hosts on one database), instead of being study totals."""
 
 
 @dataclass(frozen=True)
@@ -139,26 +142,33 @@ def run_studies(
     ]
     interrupted = False
     try:
-        for kind, name, n, objectives in runs:
+        for kind, name, budget, objectives in runs:
+            n = budget
+            if kind == "plan":
+                enqueue += _tuned_osc_seed(problem, studies["osc"])
+            if settings.add:  # the progress total: what is there now plus what this adds
+                n += srch.finished(
+                    srch.open_study(settings.storage, name, settings.seed, settings.prune,
+                                    objectives)
+                )
 
             def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
                 if on_progress:
                     on_progress(kind, n, study)
 
-            if kind == "plan":
-                enqueue += _tuned_osc_seed(problem, studies["osc"])
             studies[kind] = srch.run_search(
                 problem,
                 settings.storage,
                 name,
                 kind,
-                n,
+                budget,
                 settings.seed,
                 settings.workers,
                 prune=settings.prune,
                 enqueue=enqueue if kind == "plan" else (),
                 on_progress=progress,
                 objectives=objectives,
+                add=settings.add,
             )
             progress(studies[kind])
     except KeyboardInterrupt:
@@ -277,11 +287,12 @@ def run_record(
         "urdf_sha256": hashlib.sha256(problem.arm.urdf_xml.encode("utf-8")).hexdigest(),
         "actuator_files": [str(a) for a in problem.actuator_files],
         "study": settings.study,
-        "storage": settings.storage,
+        "storage": srch._redact(settings.storage),
         "seed": settings.seed,
         "workers": settings.workers,
         "trials": settings.trials,
         "baseline_trials": settings.baseline_trials,
+        "trials_added_here": settings.add,
         "objectives": list(settings.objectives),
         "pruning": settings.prune and len(settings.objectives) == 1,
         "elapsed_s": round(result.elapsed_s, 2),

@@ -16,6 +16,7 @@ import logging
 import math
 import multiprocessing
 import os
+import re
 import signal
 import socket
 import warnings
@@ -337,11 +338,46 @@ def objective(
 
 
 # -- storage and studies -----------------------------------------------------------
+#: Database heartbeat of a running trial [s], and how long one may miss it before the trial
+#: counts as stale (its worker died, on any host) and is failed and queued again once.
+HEARTBEAT_S = 10
+GRACE_S = 40
+
+
 def open_storage(spec: str) -> Any:
-    """An optuna storage: a URL (``sqlite:///…``, ``postgresql://…``) or a journal file path."""
+    """An optuna storage: a URL (``sqlite:///…``, ``postgresql://…``) or a journal file path.
+
+    A database storage runs a heartbeat: a trial whose worker stops beating for
+    ``GRACE_S`` is failed by the next worker to start a trial, and queued again once.
+    """
     if "://" in spec:
-        return spec
+        quiet_optuna()
+        try:
+            return optuna.storages.RDBStorage(
+                spec,
+                engine_kwargs={"pool_pre_ping": True},
+                heartbeat_interval=HEARTBEAT_S,
+                grace_period=GRACE_S,
+                heartbeat_stale_trial_callback=optuna.storages.RetryHeartbeatStaleTrialCallback(
+                    max_retry=1
+                ),
+            )
+        except ImportError as err:
+            raise InputError(
+                None,
+                "--storage",
+                f"the driver for {spec.split('://')[0]} is not installed ({err}); for "
+                "PostgreSQL: pip install -e '.[postgres]'",
+            ) from err
+        except Exception as err:  # sqlalchemy: bad URL, server down, no such database
+            first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+            raise InputError(None, "--storage", f"cannot open {_redact(spec)}: {first}") from err
     return journal_storage(spec)
+
+
+def _redact(url: str) -> str:
+    """The URL without its password."""
+    return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", url)
 
 
 class _TPE(optuna.samplers.TPESampler):
@@ -510,8 +546,9 @@ def run_search(
     enqueue: Sequence[tuple[dict[str, Any], dict[str, Any]]] = (),
     on_progress: Callable[[optuna.Study], None] | None = None,
     objectives: Sequence[str] = ("error",),
+    add: bool = False,
 ) -> optuna.Study:
-    """Bring study ``study_name`` up to ``total_trials`` ended trials.
+    """Bring study ``study_name`` up to ``total_trials`` ended trials (``add``: run that many).
 
     Resumes where a previous run stopped: only the missing trials are run. ``enqueue``
     holds (params, user_attrs) pairs (hand plans) evaluated first, once. With
@@ -524,7 +561,7 @@ def run_search(
     reclaim(study)
     for params, attrs in enqueue:
         study.enqueue_trial(params, user_attrs=attrs, skip_if_exists=True)
-    remaining = max(0, total_trials - finished(study))
+    remaining = total_trials if add else max(0, total_trials - finished(study))
     if remaining == 0:
         return study
     if problem.path is None:
