@@ -88,8 +88,10 @@ def test_three_workers_on_one_postgres_study(pg_url, tmp_path):
     procs = [
         subprocess.Popen(
             _search(pg_url, study, tmp_path / f"host{i}", PER_WORKER, BASELINE_PER_WORKER, 10 + i),
-            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
-        )  # fmt: skip
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         for i in range(WORKERS)
     ]
     for p in procs:

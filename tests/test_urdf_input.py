@@ -53,7 +53,7 @@ def _with(tmp_path, before_robot: str = "", inside_link: str = ""):
 def test_declarations_are_refused_before_parsing(tmp_path, capsys, decl):
     """Any DOCTYPE or ENTITY declaration gives a one-line error naming the URDF, exit 2."""
     prob, urdf = _with(tmp_path, before_robot=decl)
-    with pytest.raises(ProblemError, match="DOCTYPE.*ENTITY.*refused"):
+    with pytest.raises(ProblemError, match=r"DOCTYPE.*ENTITY.*refused"):
         load_problem(prob, check_reach=False)
     assert main(["check", str(prob)]) == 2
     err = capsys.readouterr().err
