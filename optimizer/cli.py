@@ -144,6 +144,7 @@ def _parser() -> argparse.ArgumentParser:
         metavar="DIR",
         help="draw the robustness and margin PNGs into DIR",
     )
+    _refresh_option(c2)
     c2.add_argument(
         "--perturb",
         type=int,
@@ -170,6 +171,7 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="problem file (default: the one named in the run's run.json)",
     )
+    _refresh_option(rp)
     f = sub.add_parser(
         "fit",
         help="fit an actuator model (lag + delay) to a bench log: frequency response or "
@@ -211,6 +213,42 @@ def _parser() -> argparse.ArgumentParser:
         "problem file (created if absent); every other setting in it is kept",
     )
     return p
+
+
+def _refresh_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--storage",
+        metavar="URL_OR_FILE",
+        help="first re-read the run's studies from this storage (any optuna URL, e.g. the "
+        "PostgreSQL database several hosts searched on) and rewrite the run's ranking files",
+    )
+    p.add_argument("--study", help="with --storage: the plan study (default: the run's)")
+
+
+def _refresh(run_dir: Path, prob, storage: str, study: str | None) -> None:  # type: ignore[no-untyped-def]
+    """Rewrite a run folder's ranking from the studies in ``storage`` (no trial is run)."""
+    from . import search as srch
+    from .runreport import read_run
+    from .runs import RunSettings, run_studies, write_run
+
+    old = read_run(run_dir).record
+    settings = RunSettings(
+        storage=storage,
+        study=study or str(old.get("study") or run_dir.name),
+        trials=0,
+        baseline_trials=0,
+        seed=int(old.get("seed") or 0),
+        objectives=tuple(old.get("objectives") or ("error",)),
+        add=True,
+    )
+    result = run_studies(prob, settings)
+    record = {
+        **old,
+        "study": settings.study,
+        "finished_trials": {k: srch.finished(st) for k, st in result.studies.items()},
+        "refreshed_from": srch._redact(storage),
+    }
+    write_run(run_dir, prob, result, record)
 
 
 def _search_options(r: argparse.ArgumentParser, study_default: str | None) -> None:
@@ -466,6 +504,9 @@ def _report(args: argparse.Namespace) -> int:
 
     run = read_run(args.run)
     prob, notes = run_problem(run, args.problem)
+    if args.storage:
+        _refresh(args.run, prob, args.storage, args.study)
+        run = read_run(args.run)
     out = _console_for(prob)
     for n in notes:
         out.print(f"[yellow]warning:[/] {escape(n)}")
@@ -502,6 +543,8 @@ def _compare(args: argparse.Namespace) -> int:
     if args.from_dir is not None:
         from .runreport import read_run, rebuild, roles
 
+        if args.storage:
+            _refresh(args.from_dir, prob, args.storage, args.study)
         run = read_run(args.from_dir)
         if run.record.get("problem_sha256") not in (None, prob.digest):
             print(

@@ -16,9 +16,11 @@ import logging
 import math
 import multiprocessing
 import os
+import random
 import re
 import signal
 import socket
+import time
 import warnings
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
@@ -352,26 +354,33 @@ def open_storage(spec: str) -> Any:
     """
     if "://" in spec:
         quiet_optuna()
-        try:
-            return optuna.storages.RDBStorage(
-                spec,
-                engine_kwargs={"pool_pre_ping": True},
-                heartbeat_interval=HEARTBEAT_S,
-                grace_period=GRACE_S,
-                heartbeat_stale_trial_callback=optuna.storages.RetryHeartbeatStaleTrialCallback(
-                    max_retry=1
-                ),
-            )
-        except ImportError as err:
-            raise InputError(
-                None,
-                "--storage",
-                f"the driver for {spec.split('://')[0]} is not installed ({err}); for "
-                "PostgreSQL: pip install -e '.[postgres]'",
-            ) from err
-        except Exception as err:  # sqlalchemy: bad URL, server down, no such database
-            first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
-            raise InputError(None, "--storage", f"cannot open {_redact(spec)}: {first}") from err
+        last: Exception | None = None
+        for attempt in range(6):
+            try:
+                return optuna.storages.RDBStorage(
+                    spec,
+                    engine_kwargs={"pool_pre_ping": True},
+                    heartbeat_interval=HEARTBEAT_S,
+                    grace_period=GRACE_S,
+                    heartbeat_stale_trial_callback=(
+                        optuna.storages.RetryHeartbeatStaleTrialCallback(max_retry=1)
+                    ),
+                )
+            except ImportError as err:
+                raise InputError(
+                    None,
+                    "--storage",
+                    f"the driver for {spec.split('://')[0]} is not installed ({err}); for "
+                    "PostgreSQL: pip install -e '.[postgres]'",
+                ) from err
+            except Exception as err:  # sqlalchemy: bad URL, server down, no such database...
+                # ...or another host creating the tables of a new database at this moment:
+                # that race resolves itself, so try again after a short random wait
+                last = err
+                time.sleep(0.2 * (attempt + 1) + random.random() * 0.3)
+        text = str(last).strip()
+        first = text.splitlines()[0] if text else type(last).__name__
+        raise InputError(None, "--storage", f"cannot open {_redact(spec)}: {first}") from last
     return journal_storage(spec)
 
 

@@ -128,7 +128,14 @@ def test_three_workers_on_one_postgres_study(pg_url, tmp_path):
     assert next((e["error_index"], e["trial"]) for e in ranking if e["kind"] == "osc") == osc
     run = json.loads((final / "run.json").read_text())
     assert run["trials_added_here"] is True and run["finished_trials"]["plan"] == WORKERS * PER_WORKER
-    for i in range(WORKERS):  # each host's own snapshot names real trials with their values
+    # report (and compare) re-read the studies from the database into a host's folder
+    from optimizer.cli import main
+
+    assert main(["report", str(tmp_path / "host0"), "--storage", pg_url]) == 0
+    host0 = json.loads((tmp_path / "host0" / "ranking.json").read_text())
+    assert [(e["error_index"], e["trial"]) for e in host0 if e["kind"] == "plan"] == ranked_plans
+    assert (tmp_path / "host0" / "report.md").is_file()
+    for i in range(1, WORKERS):  # each other host's own snapshot names real trials with their values
         values = {t.number: t.values[0] for t in studies[""].get_trials() if t.values}
         for e in json.loads((tmp_path / f"host{i}" / "ranking.json").read_text()):
             if e["kind"] == "plan" and e.get("trial") is not None:
