@@ -94,11 +94,6 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="hand plan to rank beside the optimized ones; repeatable",
     )
-    r.add_argument(
-        "--figures",
-        action="store_true",
-        help="write report.md and its figures into the results folder when done",
-    )
     w = sub.add_parser(
         "swap",
         help="apply new actuator settings, re-score a previous run's plans, search again "
@@ -297,6 +292,11 @@ def _search_options(r: argparse.ArgumentParser, study_default: str | None) -> No
     r.add_argument("--top", type=int, default=10, help="plans shown and written (default 10)")
     r.add_argument("--no-prune", action="store_true", help="run every trajectory of every trial")
     r.add_argument("--out", type=Path, help="results folder (default results/<problem>/<study>)")
+    r.add_argument(
+        "--figures",
+        action="store_true",
+        help="write report.md and its figures into the results folder when done",
+    )
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -781,12 +781,18 @@ def _search(args: argparse.Namespace) -> int:
     out = _console_for(prob)
     result = _run_and_show(out, prob, settings, seeded)
     names = write_run(out_dir, prob, result, run_record(prob, settings, result))
-    if args.figures and result.ranked:
-        from .runreport import read_run, write_report
-
-        with out.status("drawing the report's figures…"):
-            names += write_report(read_run(out_dir), prob)
+    names += _report_if(args, out, result, out_dir, prob)
     return _finish(out, result, out_dir, names, "search")
+
+
+def _report_if(args, out, result, out_dir: Path, prob) -> list[str]:  # type: ignore[no-untyped-def]
+    """With --figures: report.md and its PNGs in the results folder."""
+    if not args.figures or not result.ranked:
+        return []
+    from .runreport import read_run, write_report
+
+    with out.status("drawing the report's figures…"):
+        return write_report(read_run(out_dir), prob)
 
 
 def _swap(args: argparse.Namespace) -> int:
@@ -892,6 +898,7 @@ def _swap(args: argparse.Namespace) -> int:
     names_written = write_run(
         out_dir, prob, result, run_record(prob, settings, result, swap=summary)
     )
+    names_written += _report_if(args, out, result, out_dir, prob)
     return _finish(out, result, out_dir, names_written, "swap search")
 
 

@@ -377,7 +377,8 @@ def report_text(
     out += ["## Result", ""]
     if best is not None:
         sent = (
-            f"The best plan, {best.get('label')} ({best.get('tiers')} tiers: "
+            f"The best plan, {best.get('label')} ({best.get('tiers')} "
+            f"tier{'s' if best.get('tiers') != 1 else ''}: "
             f"`{best.get('plan_text')}`), reaches an error index of {fmt(best['error_index'])} "
             f"({fmt(best.get('pos_rms_mm'))} mm, {fmt(best.get('rot_rms_deg'))}° RMS)"
         )
@@ -385,8 +386,9 @@ def report_text(
         for e, what in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
             if e is not None and e.get("error_index"):
                 rel = (best["error_index"] / e["error_index"] - 1.0) * 100.0
+                side = "level with" if round(rel) == 0 else "below" if rel < 0 else "above"
                 comp.append(
-                    f"{abs(rel):.0f} % {'below' if rel < 0 else 'above'} {what} "
+                    (f"{abs(rel):.0f} % " if round(rel) else "") + f"{side} {what} "
                     f"({fmt(e['error_index'])}: {fmt(e.get('pos_rms_mm'))} mm, "
                     f"{fmt(e.get('rot_rms_deg'))}°)"
                 )
