@@ -378,11 +378,8 @@ def _score(args: argparse.Namespace) -> int:
     from .evaluate import score_joint_baseline, score_osc_baseline, score_plan
     from .plan import load_plan
     from .report import (
-        SAFETY_SHORT,
         plan_legend,
         score_table,
-        scores_json,
-        write_atomic,
     )
 
     if args.from_dir is not None:
@@ -426,13 +423,20 @@ def _score(args: argparse.Namespace) -> int:
         f"Margin = 1 − spectral radius of the linearised one-period loop (< "
         f"{prob.scoring.min_margin:g}: unstable)."
     )
+    _score_outputs(args, out, prob, scores, kept)
+    return EXIT_OK
+
+
+def _score_outputs(args, out, prob, scores, kept) -> None:  # type: ignore[no-untyped-def]
+    """The caution line, then --json and --figures of ``score``."""
+    from .report import SAFETY_SHORT, scores_json, write_atomic
+
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     if args.json:
         write_atomic(args.json, scores_json(scores))
         out.print(f"wrote {args.json}")
     if args.figures:
         _score_figures(out, args.figures, prob, scores, kept)
-    return EXIT_OK
 
 
 def _score_figures(out, folder: Path, prob, scores, kept) -> None:  # type: ignore[no-untyped-def]
@@ -451,7 +455,7 @@ def _score_figures(out, folder: Path, prob, scores, kept) -> None:  # type: igno
 def _score_from(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
-    from .report import SAFETY_SHORT, score_table, scores_json, write_atomic
+    from .report import score_table
     from .runreport import mismatches, read_run, rebuild, rescore, run_problem
 
     run = read_run(args.from_dir)
@@ -488,12 +492,7 @@ def _score_from(args: argparse.Namespace) -> int:
         )
     else:
         out.print(f"{len(run.ranking) - len(bad)} of {len(run.ranking)} ranked entries reproduced")
-    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
-    if args.json:
-        write_atomic(args.json, scores_json(scores))
-        out.print(f"wrote {args.json}")
-    if args.figures:
-        _score_figures(out, args.figures, prob, scores, kept)
+    _score_outputs(args, out, prob, scores, kept)
     return EXIT_FAILED if bad else EXIT_OK
 
 

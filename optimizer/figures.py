@@ -226,14 +226,8 @@ def history_figure(rows: Sequence[Mapping[str, Any]], colors: Mapping[str, str])
                 xs.append(int(r["number"]))
                 ys.append(best)
         a.step(xs, ys, where="post", color=colors.get(kind), lw=1.5, label=names[kind])
-    a.set_xlabel("trial [-]")
-    a.set_ylabel("best feasible error index so far [-]")
     a.set_yscale("log")
-    a.grid(True, which="both", alpha=0.3)
-    a.legend(fontsize=8)
-    a.set_title("search history")
-    fig.tight_layout()
-    return fig
+    return _finish(fig, a, "trial [-]", "best feasible error index so far [-]", "search history")
 
 
 def pareto_figure(
@@ -263,13 +257,9 @@ def pareto_figure(
         if pick:
             a.plot([pick[0]], [pick[1]], "*", ms=14, color=OSC, label=f"chosen (trial {pick[2]})")
     unit = {"margin": "stability margin [-]", "effort": "RMS commanded torque [N·m]"}
-    a.set_xlabel("error index [-]")
-    a.set_ylabel(unit.get(second, second))
-    a.grid(True, alpha=0.3)
-    a.legend(fontsize=8)
-    a.set_title(f"plans: error against {second}")
-    fig.tight_layout()
-    return fig
+    return _finish(
+        fig, a, "error index [-]", unit.get(second, second), f"plans: error against {second}"
+    )
 
 
 def margin_figure(
@@ -284,11 +274,21 @@ def margin_figure(
     a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
     a.set_yticks(y, labels, fontsize=8)
     a.axvline(min_margin, color=DATA, ls="--", lw=1, label=f"min_margin {min_margin:g}")
-    a.set_xlabel("stability margin = 1 − spectral radius [-]")
-    a.set_ylabel("ranked entry")
-    a.grid(True, axis="x", alpha=0.3)
+    return _finish(
+        fig, a, "stability margin = 1 − spectral radius [-]", "ranked entry",
+        "stability margin of each ranked plan", axis="x",
+    )
+
+
+def _finish(
+    fig: Figure, a: Any, xlabel: str, ylabel: str, title: str, axis: str = "both"
+) -> Figure:
+    """Labels, grid, legend and title of a one-panel figure."""
+    a.set_xlabel(xlabel)
+    a.set_ylabel(ylabel)
+    a.grid(True, which="both", axis=axis, alpha=0.3)
     a.legend(fontsize=8)
-    a.set_title("stability margin of each ranked plan")
+    a.set_title(title)
     fig.tight_layout()
     return fig
 
@@ -351,10 +351,4 @@ def robustness_figure(results: Sequence[Mapping[str, Any]]) -> Figure:
             a.plot([float(r["error_index"])], [y], "|", ms=16, mew=2, color=DATA,
                    label="nominal plant" if i == 0 else None)
     a.set_yticks(np.arange(len(results))[::-1], labels, fontsize=8)
-    a.set_xlabel("error index [-]")
-    a.set_ylabel("entry")
-    a.grid(True, axis="x", alpha=0.3)
-    a.legend(fontsize=8)
-    a.set_title("error on perturbed plants")
-    fig.tight_layout()
-    return fig
+    return _finish(fig, a, "error index [-]", "entry", "error on perturbed plants", axis="x")
