@@ -368,8 +368,8 @@ def open_storage(spec: str) -> Any:
                 )
             except ImportError as err:
                 raise InputError(
-                    None,
                     "--storage",
+                    "",
                     f"the driver for {spec.split('://')[0]} is not installed ({err}); for "
                     "PostgreSQL: pip install -e '.[postgres]'",
                 ) from err
@@ -380,7 +380,7 @@ def open_storage(spec: str) -> Any:
                 time.sleep(0.2 * (attempt + 1) + random.random() * 0.3)
         text = str(last).strip()
         first = text.splitlines()[0] if text else type(last).__name__
-        raise InputError(None, "--storage", f"cannot open {_redact(spec)}: {first}") from last
+        raise InputError("--storage", "", f"cannot open {_redact(spec)}: {first}") from last
     return journal_storage(spec)
 
 
