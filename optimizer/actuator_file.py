@@ -18,10 +18,8 @@ import tomlkit
 import tomlkit.exceptions
 from tomlkit.items import InlineTable, Table
 
-from .actuators import ACTUATOR_MODELS
 from .exceptions import InputError
-
-MODEL_PARAM_KEYS = sorted({k for _, keys in ACTUATOR_MODELS.values() for k in keys})
+from .problem import MODEL_KEYS
 
 
 def update_actuator(
@@ -64,7 +62,7 @@ def update_actuator(
         acts.add(joint, sect)
     elif not isinstance(sect, Table | InlineTable):
         raise InputError(path, f"actuators.{joint}", "must be a table")
-    for k in MODEL_PARAM_KEYS:
+    for k in sorted(MODEL_KEYS - {"model"}):
         if k in sect and k not in values:
             del sect[k]
     item = tomlkit.item(model)

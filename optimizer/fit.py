@@ -28,6 +28,7 @@ Kass & Raftery, JASA 1995, value from memory).
 from __future__ import annotations
 
 import csv
+import dataclasses
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -460,7 +461,7 @@ def _with_warnings(log: Log, fit: ActuatorFit) -> ActuatorFit:
     bad = [k for k, v in fit.sigma.items() if not math.isfinite(v)]
     if bad:
         out.append(f"not identifiable from these data: {', '.join(bad)}")
-    return ActuatorFit(**{**fit.__dict__, "warnings": tuple(out)})
+    return dataclasses.replace(fit, warnings=tuple(out))
 
 
 def fit_auto(log: Log) -> tuple[ActuatorFit, list[ActuatorFit], str]:

@@ -80,7 +80,12 @@ def test_first_order_bandwidth_is_closed_form():
 
 
 def test_second_order_bandwidth_matches_nise_formula():
-    """Second-order bandwidth: ωn = 1, ζ = 0.5 gives ωBW = 1.272020 (REFERENCES.md §5, checked)."""
+    """Second-order bandwidth: ωn = 1, ζ = 0.5 gives ωBW = 1.272020.
+
+    Formula ωBW = ωn √(1 − 2ζ² + √(4ζ⁴ − 4ζ² + 2)): Nise, Control Systems Engineering
+    (value from memory for the edition and section); the number is checked in
+    REFERENCES.md §5. The data come from scipy.signal.freqs (reference library).
+    """
     wn = 2 * np.pi * 10.0
     f = np.geomspace(0.5, 100.0, 80)
     _, H = sig.freqs([wn * wn], [1.0, wn, wn * wn], worN=2 * np.pi * f)
@@ -91,7 +96,10 @@ def test_second_order_bandwidth_matches_nise_formula():
 
 
 def test_simulate_time_matches_scipy_zoh():
-    """The time model for a whole-sample delay equals scipy's ZOH discretisation (dlsim)."""
+    """The time model for a whole-sample delay equals scipy.signal's ZOH discretisation.
+
+    Reference library: scipy.signal.cont2discrete (method "zoh") and scipy.signal.dlsim.
+    """
     h, k = 1e-3, 4
     wn = 2 * np.pi * 12.0
     sysd = sig.cont2discrete(([wn * wn], [1.0, 2 * 0.3 * wn, wn * wn]), h, method="zoh")
