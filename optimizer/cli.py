@@ -540,18 +540,15 @@ def _compare(args: argparse.Namespace) -> int:
     cands: list = [(pl.label, pl.compact(n), functools.partial(_tiered_for, pl)) for pl in plans]
     run = None
     if args.from_dir is not None:
-        from .runreport import read_run, rebuild, roles
+        from .runreport import changed_since, read_run, rebuild, roles
 
         if args.storage:
             _refresh(args.from_dir, prob, args.storage, args.study)
         run = read_run(args.from_dir)
-        if run.record.get("problem_sha256") not in (None, prob.digest):
-            print(
-                f"tierplan: warning: {args.problem} differs from the problem of "
-                f"{args.from_dir}; comparing on {args.problem} as it is now",
-                file=sys.stderr,
-            )
-        picked = [e for e in roles(run) if e is not None]
+        note = changed_since(run, prob)
+        if note:
+            print(f"tierplan: warning: {note}", file=sys.stderr)
+        picked = [e for e in roles(run.ranking) if e is not None]
         picked += [e for e in run.ranking if e.get("source") == "hand" and e not in picked]
         cands += [rebuild(e, run, prob) for e in picked]
     if args.baselines:
@@ -586,7 +583,8 @@ def _compare(args: argparse.Namespace) -> int:
             f"own noise seed each (draw seed {sp.seed}); the same plants for every plan."
         )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
-    text = json.dumps([r.to_dict() for r in results], indent=2) + "\n"
+    dicts = [r.to_dict() for r in results]
+    text = json.dumps(dicts, indent=2) + "\n"
     if args.json:
         write_atomic(args.json, text)
         out.print(f"wrote {args.json}")
@@ -596,7 +594,6 @@ def _compare(args: argparse.Namespace) -> int:
     if args.figures:
         from .figures import margin_figure, plan_colors, robustness_figure, save
 
-        dicts = [r.to_dict() for r in results]
         labels = [str(d["label"]) for d in dicts]
         files = [args.figures / "fig-margin.png"]
         save(margin_figure(dicts, plan_colors(labels), prob.scoring.min_margin), files[0])
@@ -796,12 +793,12 @@ def _report_if(args, out, result, out_dir: Path, prob) -> list[str]:  # type: ig
 
 def _swap(args: argparse.Namespace) -> int:
     import hashlib
-    import json
 
     from rich.markup import escape
 
     from .problem import load_problem
     from .report import fmt, swap_table, tier_moves
+    from .runreport import read_json
     from .runs import previous_plans, run_record, tier_depth, write_run
 
     from_dir: Path = args.from_dir
@@ -811,12 +808,7 @@ def _swap(args: argparse.Namespace) -> int:
         )
         return EXIT_INPUT
     prob = load_problem(args.problem, actuator_files=args.actuators)
-    old_run: dict = {}
-    if (from_dir / "run.json").is_file():
-        try:
-            old_run = json.loads((from_dir / "run.json").read_text())
-        except ValueError as err:
-            raise InputError(from_dir / "run.json", "", f"is not JSON: {err}") from err
+    old_run: dict = read_json(from_dir / "run.json") if (from_dir / "run.json").is_file() else {}
     old_study = str(old_run.get("study") or from_dir.name)
     if args.study is None:
         tag = hashlib.sha256(b"".join(a.read_bytes() for a in args.actuators)).hexdigest()[:6]

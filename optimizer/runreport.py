@@ -54,11 +54,12 @@ class RunFolder:
     """robustness.json (``compare --from``), or None."""
 
 
-def _json(path: Path) -> Any:
+def read_json(path: Path, missing: str = "not found: give a search's results folder") -> Any:
+    """A JSON file of a run folder; missing or unreadable is an InputError naming it."""
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
+        return json.loads(Path(path).read_text(encoding="utf-8"))
     except FileNotFoundError as err:
-        raise InputError(path, "", "not found: give a search's results folder") from err
+        raise InputError(path, "", missing) from err
     except (OSError, ValueError) as err:
         raise InputError(path, "", f"could not be read as JSON: {err}") from err
 
@@ -68,8 +69,8 @@ def read_run(path: Path) -> RunFolder:
     path = Path(path)
     if not path.is_dir():
         raise InputError(path, "", "is not a folder: give a search's results folder")
-    record = _json(path / "run.json")
-    ranking = _json(path / "ranking.json")
+    record = read_json(path / "run.json")
+    ranking = read_json(path / "ranking.json")
     if not isinstance(record, dict):
         raise InputError(path / "run.json", "", "must hold a JSON object")
     if not isinstance(ranking, list) or not all(isinstance(e, dict) for e in ranking):
@@ -78,14 +79,13 @@ def read_run(path: Path) -> RunFolder:
     if (path / "trials.csv").is_file():
         with open(path / "trials.csv", newline="", encoding="utf-8") as f:
             trials = list(csv.DictReader(f))
-    rob = _json(path / "robustness.json") if (path / "robustness.json").is_file() else None
+    rob = read_json(path / "robustness.json") if (path / "robustness.json").is_file() else None
     return RunFolder(path, record, ranking, trials, rob)
 
 
 def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Problem, list[str]]:
     """The run's problem (with its actuator files), and warnings when it changed since."""
     rec = run.record
-    notes: list[str] = []
     if problem_path is None:
         given = rec.get("problem")
         if not given:
@@ -97,12 +97,19 @@ def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Probl
     acts = [Path(a) for a in rec.get("actuator_files") or []]
     acts = [a if a.is_file() or not rec.get("cwd") else Path(rec["cwd"]) / a for a in acts]
     problem = load_problem(problem_path, actuator_files=acts)
-    if rec.get("problem_sha256") and rec["problem_sha256"] != problem.digest:
-        notes.append(
-            f"{problem_path} (or its URDF or actuator files) changed since the run: the "
-            "numbers below come from the files as they are now"
+    note = changed_since(run, problem)
+    return problem, [note] if note else []
+
+
+def changed_since(run: RunFolder, problem: Problem) -> str | None:
+    """A warning when ``problem`` is not the one the run was made with, else None."""
+    want = run.record.get("problem_sha256")
+    if want and want != problem.digest:
+        return (
+            f"{problem.path} (or its URDF or actuator files) differs from the problem of "
+            f"{run.path}: the numbers come from the files as they are now"
         )
-    return problem, notes
+    return None
 
 
 def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidate:
@@ -161,11 +168,11 @@ def mismatches(entry: dict[str, Any], score: Score) -> list[str]:
 
 
 # -- the report ----------------------------------------------------------------------
-def roles(run: RunFolder) -> tuple[dict | None, dict | None, dict | None]:
-    """(best plan, tuned OSC, tuned joint-space) entries of the ranking."""
-    best = next((e for e in run.ranking if e.get("kind") == "plan"), None)
-    osc = next((e for e in run.ranking if e.get("kind") == "osc"), None)
-    joint = next((e for e in run.ranking if e.get("kind") == "joint_space"), None)
+def roles(ranking: Sequence[dict]) -> tuple[dict | None, dict | None, dict | None]:
+    """(best plan, tuned OSC, tuned joint-space) entries of a ranking."""
+    best = next((e for e in ranking if e.get("kind") == "plan"), None)
+    osc = next((e for e in ranking if e.get("kind") == "osc"), None)
+    joint = next((e for e in ranking if e.get("kind") == "joint_space"), None)
     return best, osc, joint
 
 
@@ -233,7 +240,7 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
     """Write report.md and its PNGs into the run folder; returns the file names written."""
     from . import figures as fg
 
-    best, osc, joint = roles(run)
+    best, osc, joint = roles(run.ranking)
     series: list[tuple[str, str, Sequence[Rollout]]] = []
     for e, role in ((best, "best"), (osc, "osc"), (joint, "joint")):
         if e is None:
@@ -333,8 +340,7 @@ def ranking_markdown(ranking: Sequence[dict[str, Any]]) -> str:
         "vs tuned joint",
     ] + (["Pareto"] if front else [])
     lines = ["| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
-    osc = next((e for e in ranking if e.get("kind") == "osc"), None)
-    joint = next((e for e in ranking if e.get("kind") == "joint_space"), None)
+    _, osc, joint = roles(ranking)
     for e in ranking:
         row = [
             str(e.get("rank")),
@@ -364,7 +370,7 @@ def report_text(
 ) -> str:
     """The report's Markdown."""
     rec = run.record
-    best, osc, joint = roles(run)
+    best, osc, joint = roles(run.ranking)
     out = [
         f"# Tier plans for {problem.name}, study '{rec.get('study')}'",
         "",

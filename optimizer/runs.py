@@ -284,7 +284,7 @@ def run_record(
         "problem_name": problem.name,
         "problem_sha256": problem.digest,
         "urdf": str(problem.arm.source),
-        "urdf_sha256": hashlib.sha256(problem.arm.urdf_xml.encode("utf-8")).hexdigest(),
+        "urdf_sha256": _file_sha256(problem.arm.source),
         "actuator_files": [str(a) for a in problem.actuator_files],
         "study": settings.study,
         "storage": srch._redact(settings.storage),
@@ -309,6 +309,14 @@ def run_record(
         },
         **extra,
     }
+
+
+def _file_sha256(path: object) -> str | None:
+    """SHA-256 of a file's bytes (the URDF as given), or None when it cannot be read."""
+    try:
+        return hashlib.sha256(Path(str(path)).read_bytes()).hexdigest()
+    except OSError:
+        return None
 
 
 def write_run(
@@ -364,16 +372,12 @@ def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
     Raises InputError (via the loaders) when the folder or its files are unreadable.
     """
     from .exceptions import InputError
+    from .runreport import read_json
 
     ranking_path = run_dir / "ranking.json"
-    try:
-        ranking = json.loads(ranking_path.read_text())
-    except FileNotFoundError as err:
-        raise InputError(
-            ranking_path, "", "no ranking.json here: --from takes a search's results folder"
-        ) from err
-    except (OSError, ValueError) as err:
-        raise InputError(ranking_path, "", f"could not be read: {err}") from err
+    ranking = read_json(
+        ranking_path, "no ranking.json here: --from takes a search's results folder"
+    )
     if not isinstance(ranking, list):
         raise InputError(ranking_path, "", "must hold a list of ranked entries")
     out: list[Seeded] = []
