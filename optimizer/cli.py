@@ -17,7 +17,7 @@ from . import __version__
 from .exceptions import InputError, TierplanError
 
 if TYPE_CHECKING:
-    from .evaluate import Score
+    pass
 
 EXIT_OK = 0
 EXIT_FAILED = 1
@@ -78,7 +78,14 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument(
         "--no-margin",
         action="store_true",
-        help="skip the linearised stability margin (faster, margin shows as –)",
+        help="skip the stability margins (faster; they show as –)",
+    )
+    s.add_argument(
+        "--plants",
+        type=int,
+        metavar="N",
+        help="also run the first N perturbed plants of the search's set (default: "
+        "[perturb] plants of the problem; 0 for the nominal plant only)",
     )
     r = sub.add_parser(
         "search",
@@ -146,6 +153,12 @@ def _parser() -> argparse.ArgumentParser:
         default=0,
         metavar="N",
         help="also run N perturbed plants (spreads in the problem's [perturb] table)",
+    )
+    c2.add_argument(
+        "--seed",
+        type=int,
+        help="seed of the perturbed plants (default: [perturb] seed, the search's own set; "
+        "give another to check plans on plants the search never saw)",
     )
     c2.add_argument(
         "--baselines",
@@ -286,7 +299,7 @@ def _search_options(r: argparse.ArgumentParser, study_default: str | None) -> No
         "--objectives",
         default="error",
         help="'error' (default), or two objectives with a Pareto front: 'error,margin' "
-        "(maximise the stability margin) or 'error,effort' (minimise RMS torque); "
+        "(maximise the stiffness margin) or 'error,effort' (minimise RMS torque); "
         "two objectives turn pruning off",
     )
     r.add_argument("--top", type=int, default=10, help="plans shown and written (default 10)")
@@ -375,12 +388,10 @@ def _check(args: argparse.Namespace) -> int:
 def _score(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
-    from .evaluate import score_joint_baseline, score_osc_baseline, score_plan
+    from .evaluate import joint_gains_text, osc_plan
     from .plan import load_plan
-    from .report import (
-        plan_legend,
-        score_table,
-    )
+    from .report import MARGIN_LEGEND, plan_legend, reasons, robust_table, score_table
+    from .robust import evaluate_robust, plant_set
 
     if args.from_dir is not None:
         return _score_from(args)
@@ -394,49 +405,86 @@ def _score(args: argparse.Namespace) -> int:
             "tierplan: error: score needs at least one --plan FILE or --baselines", file=sys.stderr
         )
         return EXIT_INPUT
+    n_plants = prob.perturb.plants if args.plants is None else args.plants
+    if n_plants < 0:
+        print(f"tierplan: error: --plants must be >= 0, got {n_plants}", file=sys.stderr)
+        return EXIT_INPUT
     out = _console_for(prob)
-    kw: dict = {"compute_margin": not args.no_margin}
-    scores = []
-    kept: list[list] = []
-    jobs: list[tuple[str, Callable[..., Score]]] = [
-        (pl.label, functools.partial(score_plan, prob, pl, **kw)) for pl in plans
+    n = prob.arm.n
+    jobs: list[tuple[str, str, Callable]] = [
+        (pl.label, pl.compact(n), functools.partial(_tiered_for, pl,
+                                                    kind="osc" if pl.is_single_tier(n) else "plan"))
+        for pl in plans
     ]
     if args.baselines:
-        jobs += [
-            ("baseline: single-tier OSC", functools.partial(score_osc_baseline, prob, **kw)),
-            ("baseline: joint-space", functools.partial(score_joint_baseline, prob, **kw)),
-        ]
+        b = prob.baseline
+        op = osc_plan(prob, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
+        jobs.append((op.label, op.compact(n), functools.partial(_tiered_for, op, kind="osc")))
+        jobs.append(
+            ("baseline: joint-space CLIK + PD", joint_gains_text(b.joint_kp, b.joint_zeta),
+             functools.partial(_joint_for, b.joint_kp, b.joint_zeta))
+        )
+    plants = plant_set(prob, n_plants)
+    results = []
+    kept: list[list] = []
     with out.status("simulating…") as status:
-        for i, (label, job) in enumerate(jobs, start=1):
+        for i, (label, text, make) in enumerate(jobs, start=1):
             status.update(
-                f"simulating {label} ({i}/{len(jobs)}) on {len(prob.references)} trajectories…"
+                f"simulating {label} ({i}/{len(jobs)}) on {len(prob.references)} trajectories"
+                + (f" and {n_plants} perturbed plants…" if n_plants else "…")
             )
             kept.append([])
-            scores.append(job(keep_rollouts=kept[-1] if args.figures else None))
-    ref = next((s for s in scores if s.kind == "osc"), scores[0])
-    out.print(score_table(scores, reference=ref))
+            results.append(
+                evaluate_robust(
+                    prob, plants, make, label, text, compute_margin=not args.no_margin,
+                    keep_rollouts=kept[-1] if args.figures else None,
+                )
+            )
+    scores = [r.nominal for r in results]
+    ref_i = next((i for i, s in enumerate(scores) if s.kind == "osc"), 0)
+    out.print(score_table(scores, reference=scores[ref_i]))
+    if n_plants:
+        out.print(robust_table(results, reference=results[ref_i]))
+    for line in reasons(results):
+        out.print(line)
     out.print(escape("plans ([joints] t = kp_t, r = kp_r [1/s²], z = ζ):"))
     for line in plan_legend(scores):
         out.print(line)
+    lim = prob.scoring.margins
     out.print(
-        f"'vs OSC' compares the error index with '{ref.label}'. "
-        f"Margin = 1 − spectral radius of the linearised one-period loop (< "
-        f"{prob.scoring.min_margin:g}: unstable)."
+        f"'vs OSC' compares with '{escape(scores[ref_i].label)}'. {MARGIN_LEGEND}; feasible "
+        f"needs at least {lim.stiffness:g}×, {lim.delay_ms:g} ms and {lim.bandwidth:g}×."
     )
-    _score_outputs(args, out, prob, scores, kept)
+    if n_plants:
+        out.print(_plants_line(prob, n_plants))
+    _score_outputs(args, out, prob, results, kept)
     return EXIT_OK
 
 
-def _score_outputs(args, out, prob, scores, kept) -> None:  # type: ignore[no-untyped-def]
+def _plants_line(prob, n: int, seed: int | None = None) -> str:  # type: ignore[no-untyped-def]
+    """One line on how the perturbed plants were drawn."""
+    sp = prob.perturb
+    return (
+        f"perturbed plants: {n}, drawn with seed {sp.seed if seed is None else seed} "
+        f"(bandwidth ±{sp.bandwidth_rel:.0%}, 2nd-order damping ±{sp.damping_rel:.0%}, delay "
+        f"±{sp.delay_ticks} ticks, payload mass ±{sp.payload_rel:.0%} and position "
+        f"±{sp.payload_offset_m * 1000:g} mm, friction ±{sp.friction_rel:.0%}, own noise seed "
+        f"each); the same plants for every entry. 'plants ok' counts the perturbed plants where "
+        f"the entry neither diverged nor went unstable; p90, worst and mean run over those and "
+        f"the nominal plant, failures counting as inf."
+    )
+
+
+def _score_outputs(args, out, prob, results, kept) -> None:  # type: ignore[no-untyped-def]
     """The caution line, then --json and --figures of ``score``."""
     from .report import SAFETY_SHORT, scores_json, write_atomic
 
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     if args.json:
-        write_atomic(args.json, scores_json(scores))
+        write_atomic(args.json, scores_json(results))
         out.print(f"wrote {args.json}")
     if args.figures:
-        _score_figures(out, args.figures, prob, scores, kept)
+        _score_figures(out, args.figures, prob, [r.nominal for r in results], kept)
 
 
 def _score_figures(out, folder: Path, prob, scores, kept) -> None:  # type: ignore[no-untyped-def]
@@ -455,7 +503,7 @@ def _score_figures(out, folder: Path, prob, scores, kept) -> None:  # type: igno
 def _score_from(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
-    from .report import score_table
+    from .report import reasons, robust_table, score_table
     from .runreport import mismatches, read_run, rebuild, rescore, run_problem
 
     run = read_run(args.from_dir)
@@ -476,9 +524,13 @@ def _score_from(args: argparse.Namespace) -> int:
             )
             scores.append(sc)
             diffs.append(mismatches(e, sc) if not args.no_margin else [])
-    ref = next((s for s in scores if s.kind == "osc"), scores[0]) if scores else None
-    if scores:
-        out.print(score_table(scores, reference=ref))
+    ref = next((r for r in scores if r.nominal.kind == "osc"), scores[0]) if scores else None
+    if ref is not None:
+        out.print(score_table([r.nominal for r in scores], reference=ref.nominal))
+        if prob.perturb.plants:
+            out.print(robust_table(scores, reference=ref))
+        for line in reasons(scores):
+            out.print(line)
     bad = [(e, d) for e, d in zip(run.ranking, diffs) if d]
     for e, d in bad:
         out.print(f"[red]rank {e.get('rank')} {escape(str(e.get('label')))} differs:[/] "
@@ -488,7 +540,8 @@ def _score_from(args: argparse.Namespace) -> int:
     elif not bad:
         out.print(
             f"[green]reproduced[/]: all {len(run.ranking)} ranked entries of {args.from_dir} "
-            "match ranking.json exactly (error index, RMS and max errors, torque, margin, steps)"
+            "match ranking.json exactly (error index, RMS and max errors, torque, margins, "
+            "steps, robust figures)"
         )
     else:
         out.print(f"{len(run.ranking) - len(bad)} of {len(run.ranking)} ranked entries reproduced")
@@ -523,7 +576,14 @@ def _compare(args: argparse.Namespace) -> int:
     from .compare import compare
     from .evaluate import joint_gains_text, osc_plan
     from .plan import load_plan
-    from .report import SAFETY_SHORT, console, robustness_table, write_atomic
+    from .report import (
+        MARGIN_LEGEND,
+        SAFETY_SHORT,
+        console,
+        reasons,
+        robustness_table,
+        write_atomic,
+    )
 
     prob = _load(args.problem)
     if args.perturb < 0:
@@ -571,20 +631,24 @@ def _compare(args: argparse.Namespace) -> int:
             done[0] += 1
             status.update(f"perturbed plants {done[0]}/{total}…")
 
-        results = compare(prob, cands, args.perturb, on_draw=tick)
+        results = compare(prob, cands, args.perturb, on_draw=tick, seed=args.seed)
     out.print(robustness_table(results, args.perturb))
+    for line in reasons(results):
+        out.print(line)
     for r in results:
         out.print(f"  {escape(r.nominal.label)}: {escape(r.nominal.plan_text)}")
-    sp = prob.perturb
+    out.print(MARGIN_LEGEND + ".")
+    seed = prob.perturb.seed if args.seed is None else args.seed
     if args.perturb:
-        out.print(
-            f"perturbed plants: bandwidth ±{sp.bandwidth_rel:.0%}, delay ±{sp.delay_ticks} "
-            f"ticks, payload ±{sp.payload_rel:.0%}, friction ±{sp.friction_rel:.0%}, "
-            f"own noise seed each (draw seed {sp.seed}); the same plants for every plan."
-        )
+        out.print(_plants_line(prob, args.perturb, seed))
+        if seed == prob.perturb.seed and prob.perturb.plants:
+            out.print(
+                "[yellow]note:[/] these are the search's own plants (seed "
+                f"{seed}); give --seed with another value for plants the search never saw"
+            )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     dicts = [r.to_dict() for r in results]
-    text = json.dumps(dicts, indent=2) + "\n"
+    text = json.dumps({"seed": seed, "plants": args.perturb, "entries": dicts}, indent=2) + "\n"
     if args.json:
         write_atomic(args.json, text)
         out.print(f"wrote {args.json}")
@@ -596,7 +660,7 @@ def _compare(args: argparse.Namespace) -> int:
 
         labels = [str(d["label"]) for d in dicts]
         files = [args.figures / "fig-margin.png"]
-        save(margin_figure(dicts, plan_colors(labels), prob.scoring.min_margin), files[0])
+        save(margin_figure(dicts, plan_colors(labels), prob.scoring.margins), files[0])
         if args.perturb:
             files.append(args.figures / "fig-robustness.png")
             save(robustness_figure(dicts), files[1])

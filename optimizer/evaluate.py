@@ -1,4 +1,4 @@
-"""Score a controller on a problem: one rollout per trajectory, metrics, stability margin.
+"""Score a controller on a problem: one rollout per trajectory, metrics, stability margins.
 
 Pure library code: no printing, no optuna. ``on_trajectory`` lets a caller (the search)
 see the running error after each trajectory and stop early by raising.
@@ -17,7 +17,7 @@ from .metrics import TrackMetrics, track_metrics
 from .plan import Plan, single_tier
 from .problem import Problem
 from .simulate import ClosedLoop, Rollout
-from .stability import loop_margin
+from .stability import Margins, delay_cap_ticks, loop_margins, unstable_instant
 
 
 @dataclass(frozen=True)
@@ -28,8 +28,8 @@ class TrajectoryScore:
     """Trajectory name."""
     metrics: TrackMetrics
     """Tracking and effort figures."""
-    margin: float
-    """1 − largest spectral radius at the sampled instants [-] (nan when diverged)."""
+    margins: Margins
+    """Worst margins over the sampled instants (nan when diverged or not computed)."""
     diverged: bool
     """True when the rollout stopped early."""
     reason: str | None
@@ -70,8 +70,17 @@ class Score:
     """Largest |command| / limit over the set [-]."""
     path_at_mm: float | None
     """Largest path accuracy AT_p over the set [mm] (None when no trajectory moves)."""
-    margin: float
-    """Smallest margin over the set [-]."""
+    stiffness_margin: float
+    """Smallest stiffness margin over the set: factor on every stiffness, ζ held [-]."""
+    delay_margin_ms: float
+    """Smallest delay margin over the set: extra delay on every joint [ms]."""
+    bandwidth_margin: float
+    """Smallest bandwidth margin over the set: factor every actuator may slow down [-]."""
+    slowest_mode_s: float
+    """Time constant of the slowest mode (the posture loop, usually) [s]."""
+    delay_cap_ms: float
+    """Largest extra delay the delay-margin search looks at [ms] (a margin there means
+    at least this much)."""
     error_index: float
     """Aggregate error the search minimises (inf when infeasible by divergence) [-]."""
     steps: int
@@ -86,7 +95,7 @@ class Score:
             {
                 "name": t.name,
                 **asdict(t.metrics),
-                "margin": t.margin,
+                **margin_fields(t.margins),
                 "diverged": t.diverged,
                 "reason": t.reason,
                 "steps": t.steps,
@@ -94,17 +103,31 @@ class Score:
             }
             for t in self.trajectories
         ]
-        out: dict[str, object] = _finite(d)  # type: ignore[assignment]
+        out: dict[str, object] = finite(d)  # type: ignore[assignment]
         return out
 
 
-def _finite(x: object) -> object:
+def margin_fields(m: Margins) -> dict[str, float]:
+    """The margins under the field names of scores, rankings and JSON."""
+    return {
+        "stiffness_margin": m.stiffness,
+        "delay_margin_ms": m.delay_ms,
+        "bandwidth_margin": m.bandwidth,
+        "slowest_mode_s": m.slowest_mode_s,
+    }
+
+
+NO_MARGINS = Margins(math.nan, math.nan, math.nan, math.nan, math.nan)
+
+
+def finite(x: object) -> object:
+    """``x`` with non-finite floats (also inside dicts and lists) replaced by None."""
     if isinstance(x, float):
         return x if math.isfinite(x) else None
     if isinstance(x, dict):
-        return {k: _finite(v) for k, v in x.items()}
+        return {k: finite(v) for k, v in x.items()}
     if isinstance(x, list):
-        return [_finite(v) for v in x]
+        return [finite(v) for v in x]
     return x
 
 
@@ -158,16 +181,22 @@ def evaluate(
     plan_text: str = "",
     stop_on_failure: bool = False,
     compute_margin: bool = True,
-    on_trajectory: Callable[[int, float], None] | None = None,
+    on_trajectory: Callable[[int, float, float], None] | None = None,
     keep_rollouts: list[Rollout] | None = None,
     seed: int | None = None,
+    check_stable: bool = False,
 ) -> Score:
     """Simulate ``controller`` on every trajectory of ``problem`` and score it.
 
     Args:
         stop_on_failure: skip the remaining trajectories once one diverges or is unstable.
-        compute_margin: linearise the loop at the sampled instants (costs ~2·states ticks each).
-        on_trajectory: called with (index, running aggregate error) after each trajectory.
+        compute_margin: linearise the loop at the sampled instants and find the stiffness,
+            delay and bandwidth margins there (a plan below the problem's minimums is
+            infeasible).
+        check_stable: without ``compute_margin``, still linearise at the sampled instants
+            and count a loop with spectral radius ≥ 1 as a failure (perturbed plants).
+        on_trajectory: called with (index, running aggregate error, this trajectory's
+            error) after each trajectory.
         keep_rollouts: when given, every rollout is appended to it (for figures).
         seed: noise seed (default: the problem's).
     """
@@ -179,17 +208,23 @@ def evaluate(
         if keep_rollouts is not None:
             keep_rollouts.append(ro)
         m = track_metrics(ro, loop.effort, s.settle_s, problem.dt)
-        margin = (
-            loop_margin(loop, ro.snapshots) if (compute_margin and not ro.diverged) else math.nan
-        )
-        err = math.inf if ro.diverged else trajectory_error(problem, m)
-        per.append(TrajectoryScore(ref.name, m, margin, ro.diverged, ro.reason, ro.steps, err))
+        margins = NO_MARGINS
+        diverged, why = ro.diverged, ro.reason
+        if compute_margin and not diverged:
+            margins = loop_margins(loop, ro.snapshots, s.margins)
+        elif check_stable and not diverged:
+            k = unstable_instant(loop, ro.snapshots)
+            if k is not None:
+                diverged = True
+                why = f"linearised loop unstable at t={ref.t[k]:.3f} s (spectral radius ≥ 1)"
+        err = math.inf if diverged else trajectory_error(problem, m)
+        per.append(TrajectoryScore(ref.name, m, margins, diverged, why, ro.steps, err))
         if on_trajectory is not None:
-            on_trajectory(i, _aggregate([t.error_index for t in per], s.aggregate))
-        unstable = compute_margin and not ro.diverged and margin < s.min_margin
-        if stop_on_failure and (ro.diverged or unstable):
+            on_trajectory(i, _aggregate([t.error_index for t in per], s.aggregate), err)
+        unstable = compute_margin and not diverged and s.margins.shortfall(margins) is not None
+        if stop_on_failure and (diverged or unstable):
             break
-    return _score(problem, controller, label, plan_text, per)
+    return _score(problem, controller, label, plan_text, per, delay_cap_ticks(loop) * problem.dt)
 
 
 def _aggregate(values: list[float], how: str) -> float:
@@ -199,15 +234,23 @@ def _aggregate(values: list[float], how: str) -> float:
 
 
 def _score(
-    problem: Problem, controller: Controller, label: str, plan_text: str, per: list[TrajectoryScore]
+    problem: Problem,
+    controller: Controller,
+    label: str,
+    plan_text: str,
+    per: list[TrajectoryScore],
+    delay_cap_s: float,
 ) -> Score:
     s = problem.scoring
     reason = next((f"on {t.name!r}: {t.reason}" for t in per if t.diverged), None)
-    margins = [t.margin for t in per if not math.isnan(t.margin)]
-    margin = min(margins) if margins else math.nan
-    if reason is None and margins and margin < s.min_margin:
-        worst = min(per, key=lambda t: t.margin if not math.isnan(t.margin) else math.inf)
-        reason = f"on {worst.name!r}: stability margin {margin:.4f} below {s.min_margin:g}"
+    computed = [t for t in per if not math.isnan(t.margins.radius)]
+    worst_m = Margins.worst(t.margins for t in computed) if computed else NO_MARGINS
+    if reason is None:
+        short = next(
+            ((t.name, w) for t in computed if (w := s.margins.shortfall(t.margins))), None
+        )
+        if short is not None:
+            reason = f"on {short[0]!r}: {short[1]}"
     if reason is None and len(per) < len(problem.references):
         reason = "not all trajectories were run"
     ats = [t.metrics.path_at_mm for t in per if t.metrics.path_at_mm is not None]
@@ -225,7 +268,11 @@ def _score(
         tau_rms_nm=float(np.mean([t.metrics.tau_rms_nm for t in per])),
         peak_torque_ratio=float(max(t.metrics.peak_torque_ratio for t in per)),
         path_at_mm=float(max(ats)) if ats else None,
-        margin=margin,
+        stiffness_margin=worst_m.stiffness,
+        delay_margin_ms=worst_m.delay_ms,
+        bandwidth_margin=worst_m.bandwidth,
+        slowest_mode_s=worst_m.slowest_mode_s,
+        delay_cap_ms=delay_cap_s * 1e3,
         error_index=_aggregate([t.error_index for t in per], s.aggregate),
         steps=sum(t.steps for t in per),
         trajectories=tuple(per),
@@ -235,7 +282,7 @@ def _score(
 def score_plan(problem: Problem, plan: Plan, **kw: object) -> Score:
     """Evaluate a tier plan (kind ``osc`` when it is one all-joint tier)."""
     n = problem.arm.n
-    kind = "osc" if len(plan.tiers) == 1 and plan.tiers[0].joints == tuple(range(n)) else "plan"
+    kind = "osc" if plan.is_single_tier(n) else "plan"
     ctrl = plan_controller(problem, plan, kind="plan" if kind == "plan" else "osc")
     if kw.pop("as_plan", False):
         ctrl.kind = "plan"

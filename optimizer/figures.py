@@ -256,28 +256,38 @@ def pareto_figure(
         pick = next((p for p in pts if p[2] == chosen_trial), None)
         if pick:
             a.plot([pick[0]], [pick[1]], "*", ms=14, color=OSC, label=f"chosen (trial {pick[2]})")
-    unit = {"margin": "stability margin [-]", "effort": "RMS commanded torque [N·m]"}
+    unit = {"margin": "stiffness margin [×]", "effort": "RMS commanded torque [N·m]"}
     return _finish(
         fig, a, "error index [-]", unit.get(second, second), f"plans: error against {second}"
     )
 
 
 def margin_figure(
-    entries: Sequence[Mapping[str, Any]], colors: Mapping[str, str], min_margin: float
+    entries: Sequence[Mapping[str, Any]], colors: Mapping[str, str], limits: Any
 ) -> Figure:
-    """Stability margin of each ranked entry (horizontal bars), the threshold marked."""
-    fig, ax = _new(1, 1, 8.0, 0.35 * len(entries) + 1.6)
-    a = ax[0, 0]
+    """Stiffness, delay and bandwidth margins of each entry (horizontal bars, one panel
+    each), the problem's minimums dashed (``limits``: a ``MarginLimits``)."""
+    fig, ax = _new(1, 3, 12.0, 0.35 * len(entries) + 1.8, sharey=True)
     labels = [str(e["label"]) for e in entries]
-    vals = [float(e["margin"]) if e.get("margin") is not None else 0.0 for e in entries]
     y = np.arange(len(entries))[::-1]
-    a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
-    a.set_yticks(y, labels, fontsize=8)
-    a.axvline(min_margin, color=DATA, ls="--", lw=1, label=f"min_margin {min_margin:g}")
-    return _finish(
-        fig, a, "stability margin = 1 − spectral radius [-]", "ranked entry",
-        "stability margin of each ranked plan", axis="x",
+    panels = (
+        ("stiffness_margin", limits.stiffness, "stiffness margin [×], ζ held", "×"),
+        ("delay_margin_ms", limits.delay_ms, "delay margin [ms]", " ms"),
+        ("bandwidth_margin", limits.bandwidth, "bandwidth margin [×]", "×"),
     )
+    for i, (key, low, xlabel, unit) in enumerate(panels):
+        a = ax[0, i]
+        vals = [float(e[key]) if e.get(key) is not None else 0.0 for e in entries]
+        a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
+        a.axvline(low, color=DATA, ls="--", lw=1, label=f"minimum {low:g}{unit}")
+        if i == 0:
+            a.set_yticks(y, labels, fontsize=8)
+        a.set_xlabel(xlabel)
+        a.grid(True, axis="x", alpha=0.3)
+        a.legend(fontsize=7)
+    fig.suptitle("margins of the linearised loop (worst sampled instant)")
+    fig.tight_layout()
+    return fig
 
 
 def _finish(

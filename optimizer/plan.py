@@ -98,6 +98,10 @@ class Plan:
                         f"which tier {k} does not"
                     )
 
+    def is_single_tier(self, n: int) -> bool:
+        """One tier over all ``n`` joints: single-tier OSC."""
+        return len(self.tiers) == 1 and self.tiers[0].joints == tuple(range(n))
+
     def _name(self, j: int) -> str:
         return self.joint_names[j] if j < len(self.joint_names) else f"j{j + 1}"
 

@@ -23,6 +23,7 @@ from .arm import Arm, PlantDeviation, read_urdf
 from .control import AXES, ControlSettings, clik
 from .exceptions import ProblemError
 from .simulate import SimSettings
+from .stability import MarginLimits
 from .tomlio import TableReader, load_toml, suggestion
 from .trajectories import (
     ROTATION_KINDS,
@@ -57,8 +58,8 @@ class Scoring:
     """``mean`` over trajectories, or ``worst``."""
     settle_s: float = 0.1
     """Start of the scored window in every trajectory [s]."""
-    min_margin: float = 0.0
-    """Smallest stability margin 1 − ρ a feasible plan may have [-]."""
+    margins: MarginLimits = field(default_factory=MarginLimits)
+    """Smallest stiffness, delay and bandwidth margins a feasible plan may have."""
 
 
 @dataclass(frozen=True)
@@ -115,18 +116,29 @@ class SearchSpace:
 
 @dataclass(frozen=True)
 class PerturbSpread:
-    """How ``compare --perturb`` draws perturbed plants, from the ``[perturb]`` table."""
+    """Perturbed plants: how they are drawn, how many the search scores every candidate
+    on, and how their figures become one robust error (the ``[perturb]`` table)."""
 
     bandwidth_rel: float = 0.15
     """Each actuator's frequencies scaled by U(1 − s, 1 + s) [-]."""
+    damping_rel: float = 0.1
+    """Each second-order actuator's damping ratio scaled by U(1 − s, 1 + s) [-]."""
     delay_ticks: int = 1
     """Each actuator's delay moved by a whole number in [−d, d] ticks, not below 0 [-]."""
     payload_rel: float = 0.3
     """Payload mass scaled by U(1 − s, 1 + s) [-]."""
+    payload_offset_m: float = 0.02
+    """Each coordinate of the payload's centre of mass moved by U(−d, d) [m]."""
     friction_rel: float = 0.3
     """Coulomb and viscous friction scaled by U(1 − s, 1 + s), per joint [-]."""
     seed: int = 0
     """Seed of the draws (each draw also gets its own noise seed)."""
+    plants: int = 0
+    """Perturbed plants every search candidate is scored on besides the nominal one [-]."""
+    statistic: str = "p90"
+    """Robust error over the plants: ``p90``, ``worst`` or ``mean``."""
+    min_feasible_share: float = 1.0
+    """Share of the perturbed plants a feasible candidate must stay feasible on [-]."""
 
 
 @dataclass(frozen=True)
@@ -448,7 +460,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         rot_weight=tsc.float("rot_weight", 1.0, min_value=0.0),
         aggregate=tsc.str("aggregate", "mean", choices=("mean", "worst")),
         settle_s=tsim.float("settle_s", 0.1, min_value=0.0),
-        min_margin=tsim.float("min_margin", 0.0, min_value=-1.0, max_value=1.0),
+        margins=_read_margin_limits(tsim, rate),
     )
     tsim.done()
     tsc.done()
@@ -496,10 +508,17 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     tpert = root.table("perturb")
     perturb = PerturbSpread(
         bandwidth_rel=tpert.float("bandwidth_rel", 0.15, min_value=0.0, max_value=0.9),
+        damping_rel=tpert.float("damping_rel", 0.1, min_value=0.0, max_value=0.9),
         delay_ticks=tpert.int("delay_ticks", 1, min_value=0, max_value=100),
         payload_rel=tpert.float("payload_rel", 0.3, min_value=0.0, max_value=1.0),
+        payload_offset_m=tpert.float("payload_offset_m", 0.02, min_value=0.0, max_value=1.0),
         friction_rel=tpert.float("friction_rel", 0.3, min_value=0.0, max_value=1.0),
         seed=tpert.int("seed", 0, min_value=0),
+        plants=tpert.int("plants", 0, min_value=0, max_value=200),
+        statistic=tpert.str("statistic", "p90", choices=("p90", "worst", "mean")),
+        min_feasible_share=tpert.float(
+            "min_feasible_share", 1.0, min_value=0.0, max_value=1.0
+        ),
     )
     tpert.done()
     root.done()
@@ -705,6 +724,22 @@ def _read_trajectory(t: TableReader, base: Path, path: Path) -> TrajectorySpec:
     kind = _read_kind(t, kind_name, tuple(TRAJECTORY_KINDS), base, path)
     t.done()
     return TrajectorySpec(name=name, kind=kind, duration_s=duration)
+
+
+def _read_margin_limits(t: TableReader, rate: float) -> MarginLimits:
+    if t.has("min_margin"):
+        raise t.fail(
+            "min_margin",
+            "was replaced by min_stiffness_margin (factor), min_delay_margin_ms and "
+            "min_bandwidth_margin (factor); see the README",
+        )
+    return MarginLimits(
+        stiffness=t.float("min_stiffness_margin", 2.0, min_value=0.0, max_value=100.0),
+        delay_ms=t.float(
+            "min_delay_margin_ms", 1000.0 / rate, min_value=0.0, max_value=50.0
+        ),
+        bandwidth=t.float("min_bandwidth_margin", 1.25, min_value=0.0, max_value=20.0),
+    )
 
 
 def _range(

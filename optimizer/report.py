@@ -16,6 +16,7 @@ from rich.table import Table
 
 from .evaluate import Score
 from .problem import Problem
+from .robust import RobustScore
 
 SAFETY_SHORT = (
     "Simulation only. Unmodelled friction, elasticity, noise and delay can destabilise gains "
@@ -99,9 +100,47 @@ def plant_line(problem: Problem) -> str:
     return "plant vs model: " + "; ".join(parts)
 
 
+def margin_text(x: float | None, cap: float, digits: int = 2) -> str:
+    """A margin for a table: ``≥cap`` when the search stopped at its cap, a dash for none."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "–"
+    if x >= cap * (1.0 - 1e-9):
+        return f"≥{cap:g}"
+    return f"{x:.{digits}g}" if x < 100 else f"{x:.0f}"
+
+
+def margin_cells(d: object) -> list[str]:
+    """Stiffness ×, delay ms, bandwidth × of a Score, TrajectoryScore margins or dict."""
+    from .stability import BANDWIDTH_CAP, STIFFNESS_CAP
+
+    if isinstance(d, dict):
+        st, de, bw, cap_ms = (
+            d.get("stiffness_margin"), d.get("delay_margin_ms"), d.get("bandwidth_margin"),
+            d.get("delay_cap_ms"),
+        )
+    else:
+        st, de, bw = (getattr(d, k) for k in ("stiffness_margin", "delay_margin_ms",
+                                              "bandwidth_margin"))
+        cap_ms = getattr(d, "delay_cap_ms", None)
+    return [
+        margin_text(st, STIFFNESS_CAP),
+        margin_text(de, cap_ms if cap_ms else math.inf),
+        margin_text(bw, BANDWIDTH_CAP),
+    ]
+
+
+#: Column headings of the three margins, and the legend line that explains them.
+MARGIN_COLS = ("stiff ×", "delay ms", "BW ×")
+MARGIN_LEGEND = (
+    "margins (linearised loop, worst sampled instant): stiff × = factor every stiffness may "
+    "grow (ζ held), delay ms = extra delay every joint tolerates, BW × = factor every drive "
+    "may slow down, before the loop oscillates"
+)
+
+
 def score_table(scores: Sequence[Score], reference: Score | None = None) -> Table:
-    """Rows per plan: aggregate figures, then one row per trajectory."""
-    t = Table(title="closed-loop scores (aggregate = mean over trajectories)")
+    """Rows per plan: aggregate figures on the nominal plant, then one row per trajectory."""
+    t = Table(title="closed-loop scores on the nominal plant (aggregate = mean over trajectories)")
     cols = (
         "plan",
         "trajectory",
@@ -111,7 +150,7 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
         "rot max deg",
         "τ RMS N·m",
         "peak τ/lim",
-        "margin",
+        *MARGIN_COLS,
         "error idx",
         "vs OSC",
         "feasible",
@@ -123,16 +162,7 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
             overflow="fold",
         )
     for s in scores:
-        change = "–"
-        if (
-            reference is not None
-            and reference is not s
-            and math.isfinite(reference.error_index)
-            and reference.error_index > 0
-            and math.isfinite(s.error_index)
-        ):
-            change = f"{(s.error_index / reference.error_index - 1.0) * 100:+.0f} %"
-        feas = "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}"
+        feas = "[green]yes[/]" if s.feasible else "[red]no[/] (below)"
         t.add_row(
             f"[bold]{escape(s.label)}[/] ({s.tiers} tier{'s' if s.tiers > 1 else ''})",
             "[bold]all[/]",
@@ -142,9 +172,11 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
             fmt(s.rot_max_deg),
             fmt(s.tau_rms_nm),
             fmt(s.peak_torque_ratio),
-            fmt(s.margin, 2),
+            *margin_cells(s),
             fmt(s.error_index),
-            change,
+            change(s.error_index, reference.error_index)
+            if reference is not None and reference is not s
+            else "–",
             feas,
         )
         for i, tr in enumerate(s.trajectories):
@@ -158,13 +190,59 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
                 fmt(m.rot_max_deg),
                 fmt(m.tau_rms_nm),
                 fmt(m.peak_torque_ratio),
-                fmt(tr.margin, 2),
+                *margin_cells(
+                    {
+                        "stiffness_margin": tr.margins.stiffness,
+                        "delay_margin_ms": tr.margins.delay_ms,
+                        "bandwidth_margin": tr.margins.bandwidth,
+                        "delay_cap_ms": s.delay_cap_ms,
+                    }
+                ),
                 fmt(tr.error_index),
                 "",
-                "" if not tr.diverged else f"[red]{escape(tr.reason or '')}[/]",
+                "" if not tr.diverged else "[red]failed[/]",
                 end_section=i == len(s.trajectories) - 1,
             )
     return t
+
+
+def robust_table(
+    results: Sequence[RobustScore], reference: RobustScore | None = None, title: str = ""
+) -> Table:
+    """Per candidate: feasible share of the perturbed plants first, then p90, worst and
+    mean error over all plants, the robust error and its change against ``reference``."""
+    n = max((r.plants for r in results), default=0)
+    t = Table(title=title or f"robustness: the nominal plant and {n} perturbed plants")
+    cols = ("entry", "plants ok", "p90 err", "worst err", "mean err", "nominal err",
+            "robust err", "vs OSC", "feasible")
+    for c in cols:
+        t.add_column(c, justify="left" if c in ("entry", "feasible") else "right")
+    for r in results:
+        sm = r.summary()
+        t.add_row(
+            escape(r.nominal.label),
+            f"{r.plants_feasible}/{r.plants}",
+            fmt(sm["p90_error"]),  # type: ignore[arg-type]
+            fmt(sm["worst_error"]),  # type: ignore[arg-type]
+            fmt(sm["mean_error"]),  # type: ignore[arg-type]
+            fmt(r.nominal.error_index),
+            f"{fmt(r.robust_error)} ({r.how})",
+            change(r.robust_error, reference.robust_error)
+            if reference is not None and reference is not r
+            else "–",
+            "[green]yes[/]" if r.feasible else "[red]no[/] (below)",
+        )
+    return t
+
+
+def reasons(items: Sequence[Score | RobustScore]) -> list[str]:
+    """One line per infeasible entry saying why (printed under a table)."""
+    out = []
+    for x in items:
+        label = x.nominal.label if isinstance(x, RobustScore) else x.label
+        if not x.feasible:
+            out.append(f"[red]not feasible[/]: {escape(label)}: {escape(x.reason or '?')}")
+    return out
 
 
 def write_atomic(path: Path, text: str) -> None:
@@ -184,8 +262,8 @@ def write_atomic(path: Path, text: str) -> None:
         raise
 
 
-def scores_json(scores: Sequence[Score]) -> str:
-    """The scores as a JSON list (see ``Score.to_dict``)."""
+def scores_json(scores: Sequence[Score | RobustScore]) -> str:
+    """The scores as a JSON list (see ``Score.to_dict`` and ``RobustScore.to_dict``)."""
     return json.dumps([s.to_dict() for s in scores], indent=2, allow_nan=False) + "\n"
 
 
@@ -210,49 +288,60 @@ def change(value: float | None, ref: float | None) -> str:
 
 def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) -> Table:
     """The ranked search result: plans, hand plans and tuned baselines together."""
-    t = Table(title="ranking (feasible candidates; lower error index is better)")
+    t = Table(title="ranking (feasible candidates; lower robust error is better)")
     front = any("pareto" in e for e in ranked)
     cols = (
         "rank",
         "entry",
         "tiers",
+        "plants ok",
+        "p90 err",
+        "worst err",
+        "nominal err",
         "pos RMS mm",
         "rot RMS deg",
-        "margin",
-        "τ RMS N·m",
+        *MARGIN_COLS,
         "peak τ/lim",
-        "error idx",
         "vs tuned OSC",
         "vs tuned joint",
     ) + (("Pareto",) if front else ())
     for c in cols:
         t.add_column(c, justify="left" if c == "entry" else "right")
-    ro = osc["error_index"] if osc else None
-    rj = joint["error_index"] if joint else None
     for e in ranked:
         style = "bold" if e["kind"] != "plan" or e.get("source") == "hand" else ""
+        plants = e.get("plants") or 0
         t.add_row(
             str(e["rank"]),
             escape(f"{e['label']} [{e.get('source', '')}]"),
             str(e["tiers"]),
+            f"{e.get('plants_feasible', 0)}/{plants}" if plants else "–",
+            fmt(e.get("p90_error")),
+            fmt(e.get("worst_error")),
+            fmt(e["error_index"]),
             fmt(e["pos_rms_mm"]),
             fmt(e["rot_rms_deg"]),
-            fmt(e["margin"], 2),
-            fmt(e["tau_rms_nm"]),
+            *margin_cells(e),
             fmt(e["peak_torque_ratio"]),
-            fmt(e["error_index"]),
-            change(e["error_index"], ro),
-            change(e["error_index"], rj),
+            percent(e.get("vs_tuned_osc")),
+            percent(e.get("vs_tuned_joint")),
             *(("yes" if e.get("pareto") else "",) if front else ()),
             style=style,
         )
     return t
 
 
+def percent(x: float | None) -> str:
+    """A relative change (−0.3) as text (−30 %), a dash for None."""
+    return "–" if x is None or not math.isfinite(x) else f"{x * 100:+.0f} %"
+
+
 def swap_table(rows: Sequence[tuple[str, str, float | None, dict]]) -> Table:
     """A previous run's plans re-scored after a swap: (label, plan text, old error, new score)."""
     t = Table(title="previous plans under the new actuators")
-    for c in ("entry", "error idx before", "error idx now", "change", "margin now", "feasible now"):
+    from .stability import STIFFNESS_CAP
+
+    for c in ("entry", "error idx before", "error idx now", "change", "stiff × now",
+              "feasible now"):
         t.add_column(c, justify="left" if c == "entry" else "right")
     for label, _text, before, d in rows:
         now = d.get("error_index") if d.get("feasible") else None
@@ -261,7 +350,7 @@ def swap_table(rows: Sequence[tuple[str, str, float | None, dict]]) -> Table:
             fmt(before),
             fmt(now),
             change(now, before),
-            fmt(d.get("margin"), 2),
+            margin_text(d.get("stiffness_margin"), STIFFNESS_CAP),
             "yes" if d.get("feasible") else escape(f"no: {d.get('reason') or '?'}"),
         )
     return t
@@ -290,33 +379,34 @@ def csv_text(rows: Sequence[dict], columns: Sequence[str]) -> str:
     return buf.getvalue()
 
 
-def robustness_table(results: Sequence, n: int) -> Table:
-    """Nominal figures and, with perturbed plants, mean / p90 / worst error and feasible share."""
+def robustness_table(results: Sequence[RobustScore], n: int) -> Table:
+    """``compare``: nominal figures and margins, then the robust figures when ``n`` > 0."""
     t = Table(
         title="side by side" + (f" on the nominal plant and {n} perturbed plants" if n else "")
     )
-    cols = ["entry", "tiers", "pos RMS mm", "rot RMS deg", "margin", "error idx", "feasible"]
+    cols = ["entry", "tiers", "pos RMS mm", "rot RMS deg", *MARGIN_COLS, "nominal err",
+            "feasible"]
     if n:
-        cols += ["mean err", "p90 err", "worst err", "feasible share"]
+        cols[2:2] = ["plants ok", "p90 err", "worst err", "mean err"]
     for c in cols:
         t.add_column(c, justify="left" if c == "entry" else "right")
     for r in results:
         s = r.nominal
-        row = [
-            escape(s.label),
-            str(s.tiers),
+        row = [escape(s.label), str(s.tiers)]
+        if n:
+            sm = r.summary()
+            row += [
+                f"{r.plants_feasible}/{r.plants}",
+                fmt(sm["p90_error"]),  # type: ignore[arg-type]
+                fmt(sm["worst_error"]),  # type: ignore[arg-type]
+                fmt(sm["mean_error"]),  # type: ignore[arg-type]
+            ]
+        row += [
             fmt(s.pos_rms_mm),
             fmt(s.rot_rms_deg),
-            fmt(s.margin, 2),
+            *margin_cells(s),
             fmt(s.error_index),
-            "[green]yes[/]" if s.feasible else f"[red]no[/]: {escape(s.reason or '')}",
+            "[green]yes[/]" if s.feasible else "[red]no[/] (below)",
         ]
-        if n:
-            row += [
-                fmt(r.mean_error),
-                fmt(r.p90_error),
-                fmt(r.worst_error),
-                f"{r.feasible_fraction:.0%}",
-            ]
         t.add_row(*row)
     return t

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import csv
 import json
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -22,6 +21,7 @@ from .exceptions import InputError
 from .plan import load_plan
 from .problem import Problem, load_problem
 from .report import SAFETY_FULL, change, fmt, write_atomic
+from .robust import RobustScore, evaluate_robust, plant_set
 from .simulate import Rollout
 
 #: Figures of a ranked entry that ``score --from`` must reproduce exactly.
@@ -33,8 +33,14 @@ REPRODUCED = (
     "rot_max_deg",
     "tau_rms_nm",
     "peak_torque_ratio",
-    "margin",
+    "stiffness_margin",
+    "delay_margin_ms",
+    "bandwidth_margin",
     "steps",
+    "plants_feasible",
+    "p90_error",
+    "worst_error",
+    "robust_error",
 )
 
 
@@ -51,7 +57,9 @@ class RunFolder:
     trials: list[dict[str, str]]
     """trials.csv rows."""
     robustness: list[dict[str, Any]] | None
-    """robustness.json (``compare --from``), or None."""
+    """Entries of robustness.json (``compare --from``), or None."""
+    robustness_seed: int | None = None
+    """Seed of the perturbed plants of robustness.json, or None."""
 
 
 def read_json(path: Path, missing: str = "not found: give a search's results folder") -> Any:
@@ -80,7 +88,15 @@ def read_run(path: Path) -> RunFolder:
         with open(path / "trials.csv", newline="", encoding="utf-8") as f:
             trials = list(csv.DictReader(f))
     rob = read_json(path / "robustness.json") if (path / "robustness.json").is_file() else None
-    return RunFolder(path, record, ranking, trials, rob)
+    seed = None
+    if isinstance(rob, dict):
+        seed = rob.get("seed")
+        rob = rob.get("entries")
+    if rob is not None and (
+        not isinstance(rob, list) or not all(isinstance(r, dict) for r in rob)
+    ):
+        raise InputError(path / "robustness.json", "entries", "must be a list of entries")
+    return RunFolder(path, record, ranking, trials, rob, seed)
 
 
 def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Problem, list[str]]:
@@ -148,15 +164,17 @@ def rescore(
     cand: Candidate,
     keep: list[Rollout] | None = None,
     compute_margin: bool = True,
-) -> Score:
-    """Score a rebuilt candidate on ``problem`` (the same call the search made)."""
+) -> RobustScore:
+    """Score a rebuilt candidate on ``problem`` and its perturbed plants (as the search
+    scored it, but on every plant)."""
     label, text, make = cand
-    return evaluate(
-        problem, make(problem), label, text, compute_margin=compute_margin, keep_rollouts=keep
+    return evaluate_robust(
+        problem, plant_set(problem, problem.perturb.plants), make, label, text,
+        compute_margin=compute_margin, keep_rollouts=keep,
     )
 
 
-def mismatches(entry: dict[str, Any], score: Score) -> list[str]:
+def mismatches(entry: dict[str, Any], score: Score | RobustScore) -> list[str]:
     """Figures where a re-score differs from the ranked entry (empty: reproduced exactly)."""
     now = json.loads(json.dumps(score.to_dict()))
     out = []
@@ -246,7 +264,8 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
         if e is None:
             continue
         keep: list[Rollout] = []
-        rescore(problem, rebuild(e, run, problem), keep, compute_margin=False)
+        label, text, make = rebuild(e, run, problem)
+        evaluate(problem, make(problem), label, text, compute_margin=False, keep_rollouts=keep)
         series.append((_name(e), role, keep))
     figs = rollout_figures(run.path, problem, series)
 
@@ -270,25 +289,27 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
             f"Feasible plan trials, error index against {objectives[1]}; the Pareto front "
             "and the best-error plan (star).",
         )
-    ranked = [e for e in run.ranking if e.get("margin") is not None]
+    ranked = [e for e in run.ranking if e.get("stiffness_margin") is not None]
     if ranked:
         roles_of = {_name(e): r for e, r in ((best, "best"), (osc, "osc"), (joint, "joint")) if e}
         colors = fg.plan_colors([_name(e) for e in run.ranking], roles_of)
         put(
             fg.margin_figure(
-                [{**e, "label": _name(e)} for e in ranked], colors, problem.scoring.min_margin
+                [{**e, "label": _name(e)} for e in ranked], colors, problem.scoring.margins
             ),
             "fig-margin.png",
-            "Stability margin (1 − spectral radius of the linearised loop) of each ranked "
-            "entry; below the dashed line a plan is rejected.",
+            "Margins of each ranked entry, from the linearised loop at the worst sampled "
+            "instant: how much every stiffness may grow (damping ratios held), how much "
+            "delay every joint may gain, and how much every drive may slow down before the "
+            "loop oscillates. Below a dashed line a plan is rejected.",
         )
     if run.robustness:
         rob = run.robustness
         put(
             fg.robustness_figure(rob),
             "fig-robustness.png",
-            "Error index of each entry on every perturbed plant; crosses at the top are "
-            "plants on which it was infeasible.",
+            "Error index of each entry on every perturbed plant of the check after the "
+            "search; crosses at the right are plants on which it diverged or went unstable.",
         )
     write_atomic(run.path / "report.md", report_text(run, problem, figs, notes))
     return ["report.md"] + [f for f, _ in figs]
@@ -324,42 +345,122 @@ def problem_paragraph(problem: Problem, record: dict[str, Any]) -> str:
 
 def ranking_markdown(ranking: Sequence[dict[str, Any]]) -> str:
     """The ranked table as Markdown (the numbers of ranking.json, 3 significant digits)."""
+    from .report import margin_cells, percent
+
     front = any("pareto" in e for e in ranking)
     cols = [
         "rank",
         "entry",
         "source",
         "tiers",
+        "plants ok",
+        "p90 error",
+        "worst error",
+        "nominal error",
         "pos RMS [mm]",
         "rot RMS [deg]",
-        "τ RMS [N·m]",
+        "stiffness margin [×]",
+        "delay margin [ms]",
+        "bandwidth margin [×]",
         "peak τ / limit",
-        "margin",
-        "error index",
         "vs tuned OSC",
         "vs tuned joint",
     ] + (["Pareto"] if front else [])
     lines = ["| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
-    _, osc, joint = roles(ranking)
     for e in ranking:
+        plants = e.get("plants") or 0
         row = [
             str(e.get("rank")),
             str(e.get("label")).replace("|", "/"),
             str(e.get("source")),
             str(e.get("tiers")),
+            f"{e.get('plants_feasible')}/{plants}" if plants else "–",
+            fmt(e.get("p90_error")),
+            fmt(e.get("worst_error")),
+            fmt(e.get("error_index")),
             fmt(e.get("pos_rms_mm")),
             fmt(e.get("rot_rms_deg")),
-            fmt(e.get("tau_rms_nm")),
+            *margin_cells(e),
             fmt(e.get("peak_torque_ratio")),
-            fmt(e.get("margin")),
-            fmt(e.get("error_index")),
-            change(e.get("error_index"), osc.get("error_index") if osc else None),
-            change(e.get("error_index"), joint.get("error_index") if joint else None),
+            percent(e.get("vs_tuned_osc")),
+            percent(e.get("vs_tuned_joint")),
         ]
         if front:
             row.append("yes" if e.get("pareto") else "")
         lines.append("| " + " | ".join(row) + " |")
     return "\n".join(lines)
+
+
+def result_sentences(
+    ranking: Sequence[dict[str, Any]],
+    problem: Problem,
+    robustness: Sequence[dict[str, Any]] | None,
+    check_seed: object = None,
+) -> list[str]:
+    """The result in sentences: the best plan's robust and nominal error against each tuned
+    baseline, its margins, and how it fared on the plants drawn after the search."""
+    from .report import margin_cells
+
+    best, osc, joint = roles(ranking)
+    if best is None:
+        return ["No feasible tier plan was found."]
+    plants = int(best.get("plants") or 0)
+    how = best.get("statistic") or "p90"
+    what = (
+        f"a robust error ({how} of the error index over the nominal plant and {plants} "
+        f"perturbed plants) of {fmt(best.get('robust_error'))}"
+        if plants
+        else f"an error index of {fmt(best.get('error_index'))}"
+    )
+    sent = (
+        f"The best plan, {best.get('label')} ({best.get('tiers')} "
+        f"tier{'s' if best.get('tiers') != 1 else ''}: `{best.get('plan_text')}`), reaches "
+        f"{what} (nominal {fmt(best.get('error_index'))}: {fmt(best.get('pos_rms_mm'))} mm, "
+        f"{fmt(best.get('rot_rms_deg'))}° RMS)"
+    )
+    comp = []
+    for e, who in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
+        if e is None:
+            continue
+        key = "vs_tuned_osc" if e is osc else "vs_tuned_joint"
+        rel = best.get(key)
+        if rel is None:
+            continue
+        pct = rel * 100.0
+        side = "level with" if round(pct) == 0 else "below" if pct < 0 else "above"
+        comp.append(
+            (f"{abs(pct):.0f} % " if round(pct) else "") + f"{side} {who} "
+            f"({fmt(e.get('robust_error', e.get('error_index')))}; nominal "
+            f"{fmt(e.get('error_index'))})"
+        )
+    out = [sent + (": " + "; ".join(comp) if comp else "") + "."]
+    st, de, bw = margin_cells(best)
+    lim = problem.scoring.margins
+    out.append(
+        f"Its margins: every stiffness may grow {st}× (damping ratios held), every joint may "
+        f"take {de} ms more delay, and every drive may be {bw}× slower before the linearised "
+        f"loop oscillates (minimums {lim.stiffness:g}×, {lim.delay_ms:g} ms, "
+        f"{lim.bandwidth:g}×); its peak command is {fmt(best.get('peak_torque_ratio'))} of "
+        "the effort limit."
+    )
+    mine = next(
+        (r for r in robustness or [] if r.get("label") == best.get("label")
+         and r.get("plan_text") == best.get("plan_text")),
+        None,
+    )
+    if mine is not None and mine.get("plants"):
+        seed = f" (seed {check_seed})" if check_seed is not None else ""
+        out.append(
+            f"On {mine.get('plants')} perturbed plants drawn after the search{seed} it stays "
+            f"feasible on {mine.get('plants_feasible')} of {mine.get('plants')}, with p90 error "
+            f"{fmt(mine.get('p90_error'))} and worst {fmt(mine.get('worst_error'))}."
+        )
+    else:
+        out.append(
+            "It has not been checked on plants drawn after the search: run `tierplan compare "
+            "--from <this folder> --perturb 50 --seed <another seed>` and the report again."
+        )
+    return out
 
 
 def report_text(
@@ -370,7 +471,6 @@ def report_text(
 ) -> str:
     """The report's Markdown."""
     rec = run.record
-    best, osc, joint = roles(run.ranking)
     out = [
         f"# Tier plans for {problem.name}, study '{rec.get('study')}'",
         "",
@@ -381,32 +481,9 @@ def report_text(
     out += [f"> Note: {n}" for n in notes] + ([""] if notes else [])
     out += ["## Problem", "", problem_paragraph(problem, rec), ""]
     out += ["## Result", ""]
-    if best is not None:
-        sent = (
-            f"The best plan, {best.get('label')} ({best.get('tiers')} "
-            f"tier{'s' if best.get('tiers') != 1 else ''}: "
-            f"`{best.get('plan_text')}`), reaches an error index of {fmt(best['error_index'])} "
-            f"({fmt(best.get('pos_rms_mm'))} mm, {fmt(best.get('rot_rms_deg'))}° RMS)"
-        )
-        comp = []
-        for e, what in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
-            if e is not None and e.get("error_index"):
-                rel = (best["error_index"] / e["error_index"] - 1.0) * 100.0
-                side = "level with" if round(rel) == 0 else "below" if rel < 0 else "above"
-                comp.append(
-                    (f"{abs(rel):.0f} % " if round(rel) else "") + f"{side} {what} "
-                    f"({fmt(e['error_index'])}: {fmt(e.get('pos_rms_mm'))} mm, "
-                    f"{fmt(e.get('rot_rms_deg'))}°)"
-                )
-        out.append(sent + (": " + "; ".join(comp) if comp else "") + ".")
-        out.append("")
-        out.append(
-            f"Its stability margin is {fmt(best.get('margin'))} (threshold "
-            f"{problem.scoring.min_margin:g}); its peak command is "
-            f"{fmt(best.get('peak_torque_ratio'))} of the effort limit."
-        )
-    else:
-        out.append("No feasible tier plan was found.")
+    for line in result_sentences(run.ranking, problem, run.robustness, run.robustness_seed):
+        out += [line, ""]
+    out.pop()
     out += ["", "## Ranking", "", ranking_markdown(run.ranking), ""]
     out += ["Plans (`[joints] t = kp_t, r = kp_r` [1/s²], `z` = ζ):", ""]
     out += [f"{e.get('rank')}. {e.get('label')}: `{e.get('plan_text')}`" for e in run.ranking]
@@ -418,8 +495,9 @@ def report_text(
         out.append(robustness_markdown(run.robustness))
     else:
         out.append(
-            "Not run. `tierplan compare --from <this folder> --perturb 20` scores the ranked "
-            "plans on perturbed plants and adds the figures here."
+            "Not run. `tierplan compare --from <this folder> --perturb 50 --seed <another "
+            "seed>` scores the ranked plans on perturbed plants drawn after the search, and "
+            "`tierplan report` adds them here."
         )
     out.append("")
     swap = rec.get("swap")
@@ -441,20 +519,19 @@ def report_text(
 
 def robustness_markdown(rob: Sequence[dict[str, Any]]) -> str:
     """The compare --perturb figures as Markdown."""
-    n = max((int(r.get("perturbed") or 0) for r in rob), default=0)
+    n = max((int(r.get("plants") or 0) for r in rob), default=0)
     lines = [
-        f"On the nominal plant and {n} perturbed plants (the same plants for every entry):",
+        f"On the nominal plant and {n} perturbed plants (the same plants for every entry; a "
+        "plant where an entry diverged or went unstable counts as a failure):",
         "",
-        "| entry | nominal error | mean error | p90 error | worst error | feasible share |",
+        "| entry | plants ok | p90 error | worst error | mean error | nominal error |",
         "|---|---|---|---|---|---|",
     ]
     for r in rob:
-        share = r.get("feasible_fraction")
         lines.append(
-            f"| {r.get('label')} | {fmt(r.get('error_index'))} | {fmt(r.get('mean_error'))} | "
+            f"| {r.get('label')} | {r.get('plants_feasible')}/{r.get('plants')} | "
             f"{fmt(r.get('p90_error'))} | {fmt(r.get('worst_error'))} | "
-            + (f"{share:.0%}" if isinstance(share, float) and math.isfinite(share) else "–")
-            + " |"
+            f"{fmt(r.get('mean_error'))} | {fmt(r.get('error_index'))} |"
         )
     return "\n".join(lines)
 

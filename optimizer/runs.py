@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 import os
 import platform
 import sys
@@ -22,10 +23,11 @@ import optuna
 
 from . import __version__
 from . import search as srch
-from .evaluate import score_plan
+from .evaluate import plan_controller
 from .plan import Plan, load_plan, parse_plan
 from .problem import Problem
 from .report import csv_text, write_atomic
+from .robust import evaluate_robust, plant_set
 from .tomlio import tomllib
 
 #: Columns of ranking.csv.
@@ -41,10 +43,21 @@ RANKING_COLUMNS = [
     "rot_rms_deg",
     "pos_max_mm",
     "rot_max_deg",
-    "margin",
+    "stiffness_margin",
+    "delay_margin_ms",
+    "bandwidth_margin",
+    "slowest_mode_s",
     "peak_torque_ratio",
     "tau_rms_nm",
     "error_index",
+    "plants",
+    "plants_feasible",
+    "feasible_share",
+    "p90_error",
+    "worst_error",
+    "mean_error",
+    "statistic",
+    "robust_error",
     "vs_tuned_osc",
     "vs_tuned_joint",
     "pareto",
@@ -194,7 +207,7 @@ def run_studies(
         if s in direct and interrupted:
             d = {"feasible": False, "reason": "not scored: the run was interrupted"}
         elif s in direct:  # the search space cannot express it: scored as it is
-            d = score_plan(problem, s.plan).to_dict()
+            d = score_robust(problem, s.plan)
             if d["feasible"]:
                 plan_e.append(
                     {
@@ -215,15 +228,36 @@ def run_studies(
             reason = t.user_attrs.get("reason") if t is not None else None
             d = {"feasible": False, "reason": reason or "pruned: worse than the median trial"}
         seeded_scores.append((s, d))
-    plan_e.sort(key=lambda e: e["error_index"])
+    plan_e.sort(key=srch.ranking_value)
     osc_e = srch.entries(studies["osc"], "tuned")
     joint_e = srch.entries(studies["joint_space"], "tuned")
     osc, joint = (osc_e[0] if osc_e else None), (joint_e[0] if joint_e else None)
     ranked = srch.rank(plan_e, [e for e in (osc, joint) if e], settings.top)
     for e in ranked:
-        e["vs_tuned_osc"] = (e["error_index"] / osc["error_index"] - 1) if osc else None
-        e["vs_tuned_joint"] = (e["error_index"] / joint["error_index"] - 1) if joint else None
+        e["vs_tuned_osc"] = _relative(e, osc)
+        e["vs_tuned_joint"] = _relative(e, joint)
     return RunResult(studies, ranked, plan_e, osc, joint, seeded_scores, elapsed, interrupted)
+
+
+def _relative(e: dict[str, Any], ref: dict[str, Any] | None) -> float | None:
+    """Change of ``e``'s ranking value against ``ref``'s (−0.3: 30 % lower), or None."""
+    if ref is None:
+        return None
+    a, b = srch.ranking_value(e), srch.ranking_value(ref)
+    if not (math.isfinite(a) and math.isfinite(b)) or b <= 0:
+        return None
+    return a / b - 1.0
+
+
+def score_robust(problem: Problem, plan: Plan) -> dict[str, Any]:
+    """A plan scored as a search trial is (nominal plant with margins, the problem's
+    perturbed plants), as a ranking dict."""
+    plants = plant_set(problem, problem.perturb.plants)
+    kind = "osc" if plan.is_single_tier(problem.arm.n) else "plan"
+    return evaluate_robust(
+        problem, plants, lambda p: plan_controller(p, plan, kind=kind), plan.label,
+        plan.compact(problem.arm.n),
+    ).to_dict()
 
 
 def _tuned_osc_seed(
@@ -256,13 +290,17 @@ def trial_rows(studies: dict[str, optuna.Study]) -> list[dict[str, Any]]:
                     "feasible": srch.feasible(t),
                     "value": t.values[0] if t.values else None,
                     "value_2": t.values[1] if t.values and len(t.values) > 1 else None,
-                    "constraint": (t.constraints or {}).get("margin"),
+                    "constraint": (t.constraints or {}).get(srch.CONSTRAINT),
                     "source": t.user_attrs.get("source", "search"),
                     "tiers": t.user_attrs.get("tiers"),
                     "plan_text": t.user_attrs.get("plan_text"),
                     "pos_rms_mm": sc.get("pos_rms_mm"),
                     "rot_rms_deg": sc.get("rot_rms_deg"),
-                    "margin": sc.get("margin"),
+                    "stiffness_margin": sc.get("stiffness_margin"),
+                    "delay_margin_ms": sc.get("delay_margin_ms"),
+                    "bandwidth_margin": sc.get("bandwidth_margin"),
+                    "feasible_share": sc.get("feasible_share"),
+                    "robust_error": sc.get("robust_error"),
                     "steps": t.user_attrs.get("steps"),
                     "reason": t.user_attrs.get("reason"),
                 }

@@ -1,10 +1,13 @@
 """Search tier plans with optuna; tune the baselines on the same budget.
 
 Three studies share one storage: ``<name>`` (tier plans), ``<name>.osc`` (single-tier
-OSC gains) and ``<name>.joint`` (joint-space CLIK + PD gains). Every trial stores its
-full score under the user attribute ``score`` and sets the constraint
-``margin`` = min_margin − margin (> 0 is infeasible) on every path, so infeasible trials
-steer the sampler instead of vanishing. No printing here: callers pass callbacks.
+OSC gains) and ``<name>.joint`` (joint-space CLIK + PD gains). Every candidate of every
+study is scored the same way: on the nominal plant (with its stability margins) and on
+the problem's fixed set of perturbed plants; the trial's value is the robust error (a
+statistic over the plants). Every trial stores its full score under the user attribute
+``score`` and sets the constraint ``feasible`` (> 0 is infeasible: how far a margin is
+below its minimum, a divergence, too few plants feasible) on every path, so infeasible
+trials steer the sampler instead of vanishing. No printing here: callers pass callbacks.
 """
 
 from __future__ import annotations
@@ -33,7 +36,6 @@ from optuna.trial import TrialState
 
 from .control import Controller
 from .evaluate import (
-    evaluate,
     joint_controller,
     joint_gains_text,
     make_loop,
@@ -43,7 +45,8 @@ from .exceptions import InputError
 from .journal import journal_storage
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
-from .stability import home_margin
+from .robust import RobustScore, evaluate_robust, plant_set
+from .stability import Margins, home_check
 
 log = logging.getLogger(__name__)
 
@@ -57,7 +60,7 @@ STALE_S = 60.0
 KINDS = {"plan": "", "osc": ".osc", "joint_space": ".joint"}
 #: Second objectives of the two-objective mode: optuna direction and what is measured.
 SECOND_OBJECTIVES = {
-    "margin": ("maximize", "stability margin, 1 − spectral radius [-]"),
+    "margin": ("maximize", "stiffness margin: factor on every stiffness, ζ held [-]"),
     "effort": ("minimize", "RMS commanded torque over the set [N·m]"),
 }
 
@@ -74,9 +77,9 @@ def _values(
     if len(objectives) == 1:
         return error
     if objectives[1] == "margin":
-        m = score.margin if score is not None else math.nan
+        m = score.nominal.stiffness_margin if score is not None else math.nan
         return error, (m if math.isfinite(m) else -1.0)
-    e = score.tau_rms_nm if score is not None else math.nan
+    e = score.nominal.tau_rms_nm if score is not None else math.nan
     return error, (e if math.isfinite(e) else PENALTY)
 
 
@@ -231,41 +234,62 @@ def _never_alone(plan: Plan, problem: Problem) -> str | None:
 def _run_candidate(
     trial: optuna.trial.BaseTrial,
     problem: Problem,
-    controller: Controller,
+    plants: Sequence[Problem],
+    make: Callable[[Problem], Controller],
     label: str,
     text: str,
     prune: bool,
-) -> tuple[float, Any | None]:
-    """Pre-check, rollouts with pruning, constraint; returns the error and the score."""
-    min_margin = problem.scoring.min_margin
+) -> tuple[float, RobustScore | None]:
+    """Pre-check, rollouts on every plant with pruning, constraint; returns the robust
+    error and the score."""
+    limits = problem.scoring.margins
     trial.set_user_attr("plan_text", text)
+    controller = make(problem)
     trial.set_user_attr("kind", controller.kind)
     loop = make_loop(problem, controller)
-    m0 = home_margin(loop, problem.references[0])
-    if not (m0 >= min_margin):
-        trial.set_user_attr("reason", f"pre-check: stability margin at home {m0:.4g}")
+    if not home_check(loop, problem.references[0], limits):
+        trial.set_user_attr("reason", "pre-check: margins at the home pose below the minimums")
         trial.set_user_attr("steps", 0)
-        trial.set_constraint("margin", (min_margin - m0) if math.isfinite(m0) else 1.0)
+        trial.set_constraint(CONSTRAINT, 1.0)
         return PENALTY, None
 
-    def on_trajectory(i: int, running: float) -> None:
+    def on_step(i: int, running: float) -> None:
         if not prune or not math.isfinite(running):
             return
         trial.report(running, i)
         if trial.should_prune():
-            trial.set_constraint("margin", 0.0)
+            trial.set_constraint(CONSTRAINT, 0.0)
             raise optuna.TrialPruned()
 
-    score = evaluate(
-        problem, controller, label, text, stop_on_failure=True, on_trajectory=on_trajectory
+    score = evaluate_robust(
+        problem, plants, make, label, text, stop_on_failure=True, on_step=on_step
     )
     trial.set_user_attr("score", score.to_dict())
-    trial.set_user_attr("steps", score.steps)
+    trial.set_user_attr("steps", score.nominal.steps + sum(d.steps for d in score.draws))
     trial.set_user_attr("reason", score.reason)
-    diverged = any(t.diverged for t in score.trajectories)
-    c = (min_margin - score.margin) if math.isfinite(score.margin) else 1.0
-    trial.set_constraint("margin", max(c, 1.0) if diverged else c)
-    return (score.error_index if math.isfinite(score.error_index) else PENALTY), score
+    trial.set_constraint(CONSTRAINT, _violation(problem, score))
+    err = score.robust_error
+    return (err if math.isfinite(err) else PENALTY), score
+
+
+#: Name of the one constraint every trial sets (> 0: infeasible).
+CONSTRAINT = "feasible"
+
+
+def _violation(problem: Problem, score: RobustScore) -> float:
+    """How infeasible a scored candidate is: ≤ 0 feasible; 1 and more for a divergence."""
+    nom = score.nominal
+    if any(t.diverged for t in nom.trajectories) or len(nom.trajectories) < len(
+        problem.references
+    ):
+        return 1.0
+    worst = Margins(
+        nom.stiffness_margin, nom.delay_margin_ms, nom.bandwidth_margin, math.nan, math.nan
+    )
+    v = problem.scoring.margins.violation(worst)
+    if score.feasible_share < score.min_share - 1e-12:
+        v = max(v, score.min_share - score.feasible_share)
+    return v if v > 0 else 0.0
 
 
 def objective(
@@ -279,11 +303,14 @@ def objective(
     sp = problem.search
     n = problem.arm.n
     prune = prune and len(objectives) == 1
+    plants = plant_set(problem, problem.perturb.plants)
 
     def run(
-        trial: optuna.trial.Trial, controller: Controller, label: str, text: str
+        trial: optuna.trial.Trial, make: Callable[[Problem], Controller], label: str, text: str
     ) -> float | tuple[float, float]:
-        return _values(objectives, *_run_candidate(trial, problem, controller, label, text, prune))
+        return _values(
+            objectives, *_run_candidate(trial, problem, plants, make, label, text, prune)
+        )
 
     def plan_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         plan = suggest_plan(trial, problem)
@@ -292,9 +319,9 @@ def objective(
         rule = _never_alone(plan, problem)
         if rule:
             trial.set_user_attr("reason", rule)
-            trial.set_constraint("margin", 1.0)
+            trial.set_constraint(CONSTRAINT, 1.0)
             return _values(objectives, PENALTY, None)
-        return run(trial, plan_controller(problem, plan), plan.label, plan.compact(n))
+        return run(trial, lambda p: plan_controller(p, plan), plan.label, plan.compact(n))
 
     def osc_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         plan = Plan(
@@ -311,7 +338,9 @@ def objective(
         )
         trial.set_user_attr("plan_toml", plan.to_toml())
         trial.set_user_attr("tiers", 1)
-        return run(trial, plan_controller(problem, plan, kind="osc"), plan.label, plan.compact(n))
+        return run(
+            trial, lambda p: plan_controller(p, plan, kind="osc"), plan.label, plan.compact(n)
+        )
 
     def joint_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         names = problem.arm.joint_names
@@ -319,10 +348,13 @@ def objective(
             [trial.suggest_float(f"kp_{nm}", *sp.joint_kp_range, log=True) for nm in names]
         )
         zeta = trial.suggest_float("zeta", *sp.zeta_range)
-        ctrl = joint_controller(problem, kp, zeta, label="tuned joint-space CLIK + PD")
+        label = "tuned joint-space CLIK + PD"
         trial.set_user_attr("tiers", 1)
         trial.set_user_attr("joint_gains", {"kp": [float(x) for x in kp], "zeta": float(zeta)})
-        return run(trial, ctrl, ctrl.label, joint_gains_text(kp, zeta))
+        return run(
+            trial, lambda p: joint_controller(p, kp, zeta, label=label), label,
+            joint_gains_text(kp, zeta),
+        )
 
     chosen = {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
 
@@ -651,6 +683,13 @@ def best_value(study: optuna.Study) -> float | None:
     return min(vals, default=None)
 
 
+def ranking_value(e: dict[str, Any]) -> float:
+    """What a ranking sorts by: the robust error (the nominal error index for entries
+    scored without perturbed plants); None sorts last."""
+    v = e.get("robust_error", e.get("error_index"))
+    return math.inf if v is None else float(v)
+
+
 def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
     """Feasible trials as ranking entries (the score dict plus trial, source, plan).
 
@@ -674,7 +713,7 @@ def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
         if "joint_gains" in t.user_attrs:
             e["joint_gains"] = t.user_attrs["joint_gains"]
         out.append(e)
-    return sorted(out, key=lambda e: e["error_index"])
+    return sorted(out, key=ranking_value)
 
 
 def rank(
@@ -687,5 +726,5 @@ def rank(
     keep = plan_entries[:top] + [
         e for e in plan_entries[top:] if e["source"] in ("hand", "previous") or e.get("pareto")
     ]
-    allr = sorted(keep + baselines, key=lambda e: e["error_index"])
+    allr = sorted(keep + baselines, key=ranking_value)
     return [{"rank": i + 1, **e} for i, e in enumerate(allr)]

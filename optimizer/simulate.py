@@ -142,8 +142,10 @@ class ClosedLoop:
         self.plant = arm.plant_model
         self.pdata = self.plant.createData()
         Minv_home = pin.computeMinverse(self.plant, self.pdata, np.array(arm.home))
-        # explicit smoothed Coulomb friction is stable when h·(τ_c/v_ε)·(M⁻¹)_jj ≤ 0.5
-        self.v_eps = np.maximum(V_EPS, 2.0 * self.h * self.coulomb * np.diag(Minv_home) * 1.5)
+        # explicit smoothed Coulomb friction is stable when h·(τ_c/v_ε)·(M⁻¹)_jj ≤ 0.5; the
+        # width is set with the control period, not the integration step, so that
+        # ``substeps`` refines the integration without changing the friction law itself
+        self.v_eps = np.maximum(V_EPS, 2.0 * self.dt * self.coulomb * np.diag(Minv_home) * 1.5)
         self.lower = np.array(arm.lower)
         self.upper = np.array(arm.upper)
         self.pinned_ticks = max(1, int(round(self.settings.pinned_s / self.dt)))
@@ -199,8 +201,14 @@ class ClosedLoop:
         """
         ctrl = self.controller
         status = ctrl.command(k, st.q, vm)
+        return status, self.advance(st, ctrl.tau)
+
+    def advance(self, st: LoopState, tau: np.ndarray) -> int:
+        """Advance ``st`` by one tick under the command ``tau`` [N·m]: saturation, rate
+        limit, delay, actuator lag, friction and the plant. Returns the joint pinned longest.
+        """
         worst = kernels.actuate(
-            ctrl.tau,
+            tau,
             st.u_prev,
             self.rate_step,
             st.hist,
@@ -222,7 +230,7 @@ class ClosedLoop:
                 self._del_sum += self._del
         if nsub > 1:  # the logged delivered torque is the mean over the tick
             self._del[:] = self._del_sum / nsub
-        return status, int(worst)
+        return int(worst)
 
     def step_map(self, k: int, x: np.ndarray, like: LoopState) -> np.ndarray:
         """x(k+1) as a function of x(k), noise off (for linearisation)."""

@@ -55,8 +55,11 @@ def slider_urdf(mass: float = 1.0) -> str:
 </robot>"""
 
 
-def write_slider_problem(folder: Path, corner_hz: float, rate_hz: float) -> Path:
-    """Unit mass on a rail, task x only, one first-order actuator, nothing else."""
+def write_slider_problem(
+    folder: Path, corner_hz: float, rate_hz: float, delay_ms: float = 0.0, extra: str = ""
+) -> Path:
+    """Unit mass on a rail, task x only, one first-order actuator (and ``delay_ms`` of
+    transport delay), nothing else; ``extra`` is appended to the file."""
     (folder / "slider.urdf").write_text(slider_urdf())
     text = f"""
 name = "slider"
@@ -73,10 +76,12 @@ margin_samples = 1
 [actuators.rail]
 model = "first_order"
 corner_hz = {corner_hz}
+delay_ms = {delay_ms}
 [[trajectory]]
 name = "hold"
 kind = "hold"
 duration_s = 0.01
+{extra}
 """
     path = folder / "problem.toml"
     path.write_text(text)

@@ -159,7 +159,8 @@ def test_check_prints_the_summary(capsys) -> None:
 
 
 def test_score_json_has_the_documented_fields(tmp_path, capsys) -> None:
-    """score --json writes label, kind, tiers, feasible, reason, errors, margin, trajectories."""
+    """score --json writes label, kind, tiers, feasible, reason, errors, the three margins,
+    the robust figures and the trajectories."""
     out = tmp_path / "res" / "score.json"
     rc = main(
         [
@@ -184,10 +185,19 @@ def test_score_json_has_the_documented_fields(tmp_path, capsys) -> None:
             "reason",
             "pos_rms_mm",
             "rot_rms_deg",
-            "margin",
+            "stiffness_margin",
+            "delay_margin_ms",
+            "bandwidth_margin",
+            "slowest_mode_s",
+            "plants",
+            "feasible_share",
+            "p90_error",
+            "worst_error",
+            "robust_error",
             "trajectories",
         ):
             assert key in r
+        assert r["stiffness_margin"] is None or r["stiffness_margin"] > 0
         assert [t["name"] for t in r["trajectories"]] == ["reach", "wave"]
     assert rows[0]["tiers"] == 2 and rows[0]["feasible"] is True and rows[0]["reason"] is None
     assert "Simulation only" in capsys.readouterr().out

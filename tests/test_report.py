@@ -51,16 +51,19 @@ def test_report_table_has_the_numbers_of_ranking_json(run):
     ranking = json.loads((run / "ranking.json").read_text())
     rows = _md_rows((run / "report.md").read_text())
     assert len(rows) == len(ranking)
-    cols = {"pos_rms_mm": 4, "rot_rms_deg": 5, "tau_rms_nm": 6, "peak_torque_ratio": 7,
-            "margin": 8, "error_index": 9}  # fmt: skip
+    cols = {"p90_error": (5, 5e-3), "worst_error": (6, 5e-3), "error_index": (7, 5e-3),
+            "pos_rms_mm": (8, 5e-3), "rot_rms_deg": (9, 5e-3), "stiffness_margin": (10, 5e-2),
+            "bandwidth_margin": (12, 5e-2), "peak_torque_ratio": (13, 5e-3)}  # fmt: skip
     for row, e in zip(rows, ranking, strict=True):
         assert row[0] == str(e["rank"]) and row[1] == e["label"]
-        for key, i in cols.items():
-            assert float(row[i]) == pytest.approx(e[key], rel=5e-3), (key, row)
+        for key, (i, rel) in cols.items():
+            assert float(row[i].lstrip("≥")) == pytest.approx(e[key], rel=rel), (key, row)
     best = next(e for e in ranking if e["kind"] == "plan")
-    osc = next(e for e in ranking if e["kind"] == "osc")
-    pct = round(abs(best["error_index"] / osc["error_index"] - 1) * 100)
-    assert f"{pct} % below tuned single-tier OSC" in (run / "report.md").read_text() or pct == 0
+    pct = round(abs(best["vs_tuned_osc"]) * 100)
+    side = "below" if best["vs_tuned_osc"] < 0 else "above"
+    text = (run / "report.md").read_text()
+    assert f"{pct} % {side} tuned single-tier OSC" in text or pct == 0
+    assert "Its margins: every stiffness may grow" in text
 
 
 def test_score_from_reproduces_the_run_exactly(run, capsys):
@@ -86,12 +89,16 @@ def test_score_from_notices_a_changed_number(run, tmp_path, capsys):
 
 def test_compare_from_adds_robustness_to_the_report(run, capsys):
     """compare --from writes robustness.json into the run; the report then shows its table."""
-    assert main(["compare", str(PLANAR), "--from", str(run), "--perturb", "2"]) == 0
+    text = (run / "report.md").read_text()
+    assert "has not been checked on plants drawn after the search" in text
+    assert main(["compare", str(PLANAR), "--from", str(run), "--perturb", "2", "--seed", "9"]) == 0
     rob = json.loads((run / "robustness.json").read_text())
-    assert {r["kind"] for r in rob} >= {"plan", "osc", "joint_space"}
+    assert rob["seed"] == 9 and rob["plants"] == 2
+    assert {r["kind"] for r in rob["entries"]} >= {"plan", "osc", "joint_space"}
     assert main(["report", str(run)]) == 0
     text = (run / "report.md").read_text()
     assert "2 perturbed plants" in text and (run / "fig-robustness.png").is_file()
+    assert "drawn after the search (seed 9) it stays feasible on" in text
 
 
 def test_report_bad_folder_is_one_line(tmp_path, capsys):
@@ -198,9 +205,19 @@ def test_history_margin_and_pareto_figures():
     assert len(ax.get_lines()) == 3 and _labelled(ax)
     plan_line = ax.get_lines()[0]
     assert list(plan_line.get_ydata()) == [3.0, 2.0, 2.0, 2.0]  # best so far, infeasible skipped
-    entries = [{"rank": 1, "label": "a", "margin": 0.2}, {"rank": 2, "label": "b", "margin": 0.1}]
-    ax = fg.margin_figure(entries, {"a": fg.BEST}, 0.05).get_axes()[0]
-    assert len(ax.patches) == 2 and _labelled(ax)
+    from optimizer.stability import MarginLimits
+
+    entries = [
+        {"rank": 1, "label": "a", "stiffness_margin": 3.0, "delay_margin_ms": 4.0,
+         "bandwidth_margin": 1.8},
+        {"rank": 2, "label": "b", "stiffness_margin": 2.1, "delay_margin_ms": 1.5,
+         "bandwidth_margin": 1.3},
+    ]  # fmt: skip
+    axes = fg.margin_figure(entries, {"a": fg.BEST}, MarginLimits()).get_axes()
+    assert len(axes) == 3
+    for a in axes:
+        assert len(a.patches) == 2 and a.get_xlabel()
+        assert len(a.get_lines()) == 1  # the minimum
     ax = fg.pareto_figure(rows, "effort", chosen_trial=1).get_axes()[0]
     labels = [ln.get_label() for ln in ax.get_lines()]
     assert labels == ["feasible trials", "Pareto front", "chosen (trial 1)"]

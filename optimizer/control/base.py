@@ -50,6 +50,13 @@ class Controller(Protocol):
     tier_tau: np.ndarray
     """After ``command``: each tier's torque share before clipping (n_tiers, n) [N·m]."""
 
+    def set_gain_scale(
+        self, stiffness: float = 1.0, damping: float = 1.0, clip: bool = True
+    ) -> None:
+        """Scale every task (or joint) stiffness and damping gain; ``clip=False`` lifts the
+        effort clip. The command must be affine in the two factors (for linearisation)."""
+        ...
+
     def bind(self, ref: Reference) -> None:
         """Prepare for a rollout on ``ref`` (may precompute, e.g. inverse kinematics)."""
         ...

@@ -110,19 +110,32 @@ class JointSpaceController:
         if np.any(self.kp < 0) or not np.all(np.isfinite(self.kp)) or not zeta > 0:
             raise ValueError("joint gains must be finite and >= 0, zeta > 0")
         self.kd = 2.0 * zeta * np.sqrt(self.kp)
+        self._kp_base = self.kp.copy()
+        self._kd_base = self.kd.copy()
         self.zeta = float(zeta)
         self.clik_gain = clik_gain
         self.clik_damping = clik_damping
         self.posture_gain = posture_gain
         self.label = label
         self.effort = np.array(arm.effort)
+        self._effort_base = self.effort.copy()
         self.data = arm.model.createData()
         self._cache: dict[str, ClikSolution] = {}
         self.sol: ClikSolution | None = None
+        self.ref: Reference | None = None
         self._rv = np.empty(3)
         self.tau = np.zeros(arm.n)
         self.e6 = np.zeros(6)
         self.tier_tau = np.zeros((1, arm.n))
+
+    def set_gain_scale(
+        self, stiffness: float = 1.0, damping: float = 1.0, clip: bool = True
+    ) -> None:
+        """Scale the joint stiffness by ``stiffness`` and damping by ``damping`` [-];
+        ``clip=False`` lifts the effort clip (for linearisation). (1, 1, True) restores."""
+        self.kp = self._kp_base * stiffness
+        self.kd = self._kd_base * damping
+        self.effort = self._effort_base.copy() if clip else np.full_like(self.effort, np.inf)
 
     def bind(self, ref: Reference) -> None:
         key = ref.name
@@ -145,9 +158,11 @@ class JointSpaceController:
             raise RuntimeError("bind() a reference before command()")
         pin.framesForwardKinematics(model, data, q)
         f = data.oMf[fid]
-        e6, tau = self.e6, self.tau
-        e6[:3] = self.ref.p[k] - f.translation
-        kernels.log3(self.ref.R[k] @ f.rotation.T, self._rv)
+        e6, tau, ref = self.e6, self.tau, self.ref
+        if ref is None:
+            raise RuntimeError("bind() a reference before command()")
+        e6[:3] = ref.p[k] - f.translation
+        kernels.log3(ref.R[k] @ f.rotation.T, self._rv)
         e6[3:] = self._rv
         M = pin.crba(model, data, q)
         h = pin.nonLinearEffects(model, data, q, vm)

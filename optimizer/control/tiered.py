@@ -106,15 +106,39 @@ class TieredController:
             *self.qhome,
             *self.effort,
         ]
+        kp_at: list[int] = []
+        kd_at: list[int] = []
         for k, tier in enumerate(self.plan.tiers):
             kp = [tier.kp_t if ax < 3 else tier.kp_r for ax in axes]
             kd = [tier.kd_t if ax < 3 else tier.kd_r for ax in axes]
             rows = [i for i in range(m) if k == 0 or kp[i] > 0.0]
             ints += [len(tier.joints), *tier.joints, len(rows), *rows]
             lam = self.settings.tier_damping if tier.damping is None else tier.damping
+            kp_at += range(len(floats) + 1, len(floats) + 1 + m)
+            kd_at += range(len(floats) + 1 + m, len(floats) + 1 + 2 * m)
             floats += [lam, *kp, *kd]
         self._ip = np.array(ints, dtype=np.int64)
         self._fp = np.array(floats, dtype=float)
+        self._fp_base = self._fp.copy()
+        self._kp_at = np.array(kp_at, dtype=np.int64)
+        self._kd_at = np.array(kd_at, dtype=np.int64)
+        self._effort_at = slice(1 + 3 * n, 1 + 4 * n)
+
+    def set_gain_scale(
+        self, stiffness: float = 1.0, damping: float = 1.0, clip: bool = True
+    ) -> None:
+        """Scale every tier's stiffness by ``stiffness`` and its damping gain by ``damping``
+        [-] (ζ held when damping = √stiffness); ``clip=False`` lifts the effort clip.
+
+        For linearisation: the command is affine in the two factors. (1, 1, True) restores
+        the plan as written.
+        """
+        fp = self._fp
+        fp[:] = self._fp_base
+        fp[self._kp_at] *= stiffness
+        fp[self._kd_at] *= damping
+        if not clip:
+            fp[self._effort_at] = np.inf
 
     def bind(self, ref: Reference) -> None:
         self.ref = ref
