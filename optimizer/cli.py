@@ -248,6 +248,7 @@ def _refresh(run_dir: Path, prob, storage: str, study: str | None) -> None:  # t
         seed=int(old.get("seed") or 0),
         objectives=tuple(old.get("objectives") or ("error",)),
         add=True,
+        informed=False,
     )
     result = run_studies(prob, settings)
     record = {
@@ -371,13 +372,29 @@ def _load(path: Path):  # type: ignore[no-untyped-def]
 
 
 def _check(args: argparse.Namespace) -> int:
-    from .report import check_table, plant_line
+    from rich.markup import escape
+
+    from .ladder import FRACTION, MIN_GAIN_STEP, gain_ladder, suggested_plan
+    from .report import check_table, ladder_table, plant_line
 
     prob = _load(args.problem)
     out = _console_for(prob)
     for t in check_table(prob):
         out.print(t)
     out.print(plant_line(prob))
+    with out.status("climbing the gain ladder…"):
+        rungs = gain_ladder(prob)
+    out.print(ladder_table(prob, rungs))
+    plan = suggested_plan(prob, rungs)
+    if plan is None:
+        out.print("[red]no stiffness holds the minimum margins even with every joint[/]: "
+                  "check the actuators, delays and [simulation] min_* margins")
+    else:
+        out.print(
+            f"suggested plan (one tier per rung that adds at least {MIN_GAIN_STEP:g}× "
+            f"stiffness, at {FRACTION:.0%} of its limit; search evaluates it first): "
+            + escape(plan.compact(prob.arm.n))
+        )
     out.print(
         f"[green]ok[/]: {args.problem} is valid; every trajectory is reachable within the "
         "joint limits."
@@ -774,6 +791,17 @@ def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
                 f"[yellow]hand plan '{escape(s.plan.label)}' did not make the ranking: "
                 f"{escape(str(d.get('reason')))}[/]"
             )
+    for tuned, what in (
+        (result.osc, "tuned single-tier OSC"), (result.joint, "tuned joint-space")
+    ):
+        if tuned is not None and not tuned.get("converged"):
+            g = tuned.get("late_gain")
+            out.print(
+                f"[yellow]{what} may not have converged[/]: "
+                + (f"the last quarter of its trials still lowered it by {g:.0%}"
+                   if g is not None else "too few feasible trials to tell")
+                + "; give it more trials (--baseline-trials) before trusting a margin over it"
+            )
     if not result.plan_entries:
         out.print("[red]no feasible plan was found[/]: widen the gain ranges or give more trials")
     for kind, st in result.studies.items():
@@ -917,6 +945,7 @@ def _swap(args: argparse.Namespace) -> int:
     rows = [
         (s.plan.label, s.plan.compact(prob.arm.n), s.extra.get("previous_error_index"), d)
         for s, d in result.seeded_scores
+        if s.source == "previous"
     ]
     out.print(swap_table(rows))
     old_best = seeded[0]

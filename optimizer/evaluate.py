@@ -194,7 +194,8 @@ def evaluate(
             delay and bandwidth margins there (a plan below the problem's minimums is
             infeasible).
         check_stable: without ``compute_margin``, still linearise at the sampled instants
-            and count a loop with spectral radius ≥ 1 as a failure (perturbed plants).
+            and count a loop with spectral radius ≥ 1 as a failure; path accuracy is
+            skipped (perturbed plants).
         on_trajectory: called with (index, running aggregate error, this trajectory's
             error) after each trajectory.
         keep_rollouts: when given, every rollout is appended to it (for figures).
@@ -207,7 +208,7 @@ def evaluate(
         ro = loop.rollout(ref, seed=seed)
         if keep_rollouts is not None:
             keep_rollouts.append(ro)
-        m = track_metrics(ro, loop.effort, s.settle_s, problem.dt)
+        m = track_metrics(ro, loop.effort, s.settle_s, problem.dt, path_accuracy=not check_stable)
         margins = NO_MARGINS
         diverged, why = ro.diverged, ro.reason
         if compute_margin and not diverged:

@@ -79,8 +79,14 @@ def plane_crossings(
     return out
 
 
-def track_metrics(ro: Rollout, effort: np.ndarray, settle_s: float, dt: float) -> TrackMetrics:
-    """Figures of ``ro`` from ``settle_s`` on (all ticks when it stopped before that)."""
+def track_metrics(
+    ro: Rollout, effort: np.ndarray, settle_s: float, dt: float, path_accuracy: bool = True
+) -> TrackMetrics:
+    """Figures of ``ro`` from ``settle_s`` on (all ticks when it stopped before that).
+
+    ``path_accuracy=False`` skips AT_p (None), the costliest figure and not part of any
+    objective (perturbed plants).
+    """
     keep = ro.t >= settle_s
     if not np.any(keep):
         keep = np.ones_like(ro.t, dtype=bool)
@@ -89,7 +95,7 @@ def track_metrics(ro: Rollout, effort: np.ndarray, settle_s: float, dt: float) -
     tc = ro.tau_cmd[keep]
     speed = np.linalg.norm(ro.v_ref, axis=1)
     at: float | None = None
-    if speed.size and speed.max() > 1e-3:
+    if path_accuracy and speed.size and speed.max() > 1e-3:
         moving = np.flatnonzero(keep & (speed > 0.05 * speed.max()))
         if moving.size:
             idx = moving[:: max(1, moving.size // 400)]

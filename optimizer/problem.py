@@ -20,7 +20,7 @@ import numpy as np
 
 from .actuators import ACTUATOR_MODELS, JointActuator, make_model
 from .arm import Arm, PlantDeviation, read_urdf
-from .control import AXES, ControlSettings, clik
+from .control import AXES, ControlSettings, clik_cached
 from .exceptions import ProblemError
 from .simulate import SimSettings
 from .stability import MarginLimits
@@ -91,7 +91,8 @@ class SearchSpace:
     max_tiers: int = 4
     """Most tiers a plan may have [-]."""
     subset_mode: str = "nested"
-    """``nested`` (joint by joint, each tier inside the previous) or ``ranked`` (fastest k)."""
+    """``nested`` (joint by joint, each tier inside the previous) or ``ranked`` (each tier
+    keeps the joints of the previous one whose drives are at least as fast as a cut)."""
     kp_t_range: tuple[float, float] = (100.0, 20000.0)
     """Log-uniform range of kp_t per tier [1/s²]."""
     kp_r_range: tuple[float, float] = (100.0, 40000.0)
@@ -556,7 +557,7 @@ def check_reachable(prob: Problem) -> None:
     """Raise when inverse kinematics cannot follow a trajectory within the joint limits."""
     arm = prob.arm
     for i, ref in enumerate(prob.references):
-        sol = clik(
+        sol = clik_cached(
             arm,
             ref,
             prob.control.task_axes,

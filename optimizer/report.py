@@ -90,6 +90,30 @@ def check_table(problem: Problem) -> list[Table]:
     return [tj, tt]
 
 
+def ladder_table(problem: Problem, rungs: Sequence) -> Table:
+    """The gain ladder: one row per rung (``ladder.Rung``)."""
+    lim = problem.scoring.margins
+    t = Table(
+        title=f"gain ladder: highest stiffness per joint subset, home pose, margins "
+        f"{lim.stiffness:g}× / {lim.delay_ms:g} ms / {lim.bandwidth:g}× held"
+    )
+    for c in ("joints", "slowest", "BW Hz", "acts on", "highest kp 1/s²", "over the tier below"):
+        t.add_column(c, justify="left" if c in ("joints", "slowest", "acts on") else "right")
+    names = problem.arm.joint_names
+    n = problem.arm.n
+    for r in rungs:
+        joints = "all" if len(r.joints) == n else ", ".join(names[j] for j in r.joints)
+        t.add_row(
+            escape(joints),
+            escape(r.slowest),
+            fmt(r.slowest_hz),
+            r.part,
+            f"{r.limit:.0f}" if r.limit > 0 else "none holds",
+            "–" if math.isinf(r.gain_step) else f"{r.gain_step:.2g}×",
+        )
+    return t
+
+
 def plant_line(problem: Problem) -> str:
     """One line on how the plant differs from the model."""
     d = problem.arm.deviation

@@ -434,6 +434,15 @@ def result_sentences(
             f"{fmt(e.get('error_index'))})"
         )
     out = [sent + (": " + "; ".join(comp) if comp else "") + "."]
+    for e, who in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
+        if e is not None and e.get("converged") is False:
+            g = e.get("late_gain")
+            out.append(
+                f"The {who} may not have converged: "
+                + (f"the last quarter of its trials still lowered its error by {g:.0%}"
+                   if g is not None else "too few of its trials were feasible to tell")
+                + "; more baseline trials could narrow the gap."
+            )
     st, de, bw = margin_cells(best)
     lim = problem.scoring.margins
     out.append(
@@ -443,6 +452,17 @@ def result_sentences(
         f"{lim.bandwidth:g}×); its peak command is {fmt(best.get('peak_torque_ratio'))} of "
         "the effort limit."
     )
+    lad = next((e for e in ranking if e.get("source") == "ladder"), None)
+    if lad is not None and lad is not best and lad.get("robust_error"):
+        gain = (best["robust_error"] / lad["robust_error"] - 1.0) * 100.0
+        out.append(
+            f"The gain ladder's suggested plan (`{lad.get('plan_text')}`, evaluated first) "
+            f"reaches {fmt(lad.get('robust_error'))}; the search "
+            + (f"improved on it by {abs(gain):.0f} %." if gain < -0.5 else "did not improve on it.")
+        )
+    elif lad is not None and lad is best:
+        out.append("The best plan is the gain ladder's suggested plan: the search found none "
+                   "better.")
     mine = next(
         (r for r in robustness or [] if r.get("label") == best.get("label")
          and r.get("plan_text") == best.get("plan_text")),

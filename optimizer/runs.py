@@ -19,9 +19,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import optuna
 
-from . import __version__
+from . import __version__, ladder
 from . import search as srch
 from .evaluate import plan_controller
 from .plan import Plan, load_plan, parse_plan
@@ -58,6 +59,8 @@ RANKING_COLUMNS = [
     "mean_error",
     "statistic",
     "robust_error",
+    "late_gain",
+    "converged",
     "vs_tuned_osc",
     "vs_tuned_joint",
     "pareto",
@@ -90,6 +93,9 @@ class RunSettings:
     add: bool = False
     """``trials`` and ``baseline_trials`` are run by this process on top of what the studies
     hold (many hosts on one database), instead of being study totals."""
+    informed: bool = True
+    """Evaluate physically informed candidates first: the gain ladder's suggested plan
+    and informed baseline gains (``ladder.py``)."""
 
 
 @dataclass(frozen=True)
@@ -138,6 +144,10 @@ def run_studies(
     a resume); the others are scored as they are. ``on_progress(kind, total, study)``
     is called about once a second while a study runs, and once when it ends.
     """
+    if settings.informed:
+        suggested = ladder.suggested_plan(problem)
+        if suggested is not None:
+            seeded = [Seeded(suggested, "ladder"), *seeded]
     enqueue, direct = [], []
     for s in seeded:
         params = srch.plan_params(s.plan, problem)
@@ -178,7 +188,9 @@ def run_studies(
                 settings.seed,
                 settings.workers,
                 prune=settings.prune,
-                enqueue=enqueue if kind == "plan" else (),
+                enqueue=enqueue
+                if kind == "plan"
+                else baseline_seeds(problem, kind, seeded, settings.informed),
                 on_progress=progress,
                 objectives=objectives,
                 add=settings.add,
@@ -200,7 +212,7 @@ def run_studies(
     by_label = {
         t.user_attrs.get("label"): t
         for t in studies["plan"].get_trials(deepcopy=False)
-        if t.user_attrs.get("source") in ("hand", "previous")
+        if t.user_attrs.get("source") in SEEDED_SOURCES
     }
     for s in seeded:
         t = by_label.get(s.plan.label)
@@ -232,6 +244,16 @@ def run_studies(
     osc_e = srch.entries(studies["osc"], "tuned")
     joint_e = srch.entries(studies["joint_space"], "tuned")
     osc, joint = (osc_e[0] if osc_e else None), (joint_e[0] if joint_e else None)
+    for e, kind in ((osc, "osc"), (joint, "joint_space")):
+        if e is not None:  # convergence: did the last quarter of the trials still improve it?
+            gain = srch.late_gain(studies[kind])
+            e["late_gain"] = gain
+            e["converged"] = gain is not None and gain <= CONVERGED_GAIN
+    if osc is not None:  # the plan study's copy of tuned OSC is not a second row
+        plan_e = [
+            e for e in plan_e
+            if not (e.get("source") == "tuned-osc" and e.get("plan_text") == osc["plan_text"])
+        ]
     ranked = srch.rank(plan_e, [e for e in (osc, joint) if e], settings.top)
     for e in ranked:
         e["vs_tuned_osc"] = _relative(e, osc)
@@ -258,6 +280,58 @@ def score_robust(problem: Problem, plan: Plan) -> dict[str, Any]:
         problem, plants, lambda p: plan_controller(p, plan, kind=kind), plan.label,
         plan.compact(problem.arm.n),
     ).to_dict()
+
+
+#: A tuned baseline counts as converged when the last quarter of its trials improved its
+#: best value by no more than this fraction.
+CONVERGED_GAIN = 0.02
+
+#: Sources of plans evaluated first in the plan study (always kept in the ranking).
+SEEDED_SOURCES = ("hand", "previous", "ladder")
+
+
+def baseline_seeds(
+    problem: Problem, kind: str, seeded: Sequence[Seeded] = (), informed: bool = True
+) -> list[tuple[dict[str, Any], dict[str, Any]]]:
+    """What a baseline study evaluates first, so that a tuned baseline is never worse than
+    what the user already has: the problem's ``[baseline]`` gains and, for single-tier
+    OSC, every hand plan that is one all-joint tier; with ``informed``, also the informed
+    gains of ``ladder.py`` (all clipped into the search ranges).
+    """
+    b = problem.baseline
+    names = problem.arm.joint_names
+    out: list[tuple[dict[str, Any], dict[str, Any]]] = []
+    if kind == "osc":
+        gains = [(b.osc_kp_t, b.osc_kp_r, b.osc_zeta, "baseline: single-tier OSC", "baseline")]
+        gains += [
+            (s.plan.tiers[0].kp_t, s.plan.tiers[0].kp_r, s.plan.tiers[0].zeta, s.plan.label,
+             "hand")
+            for s in seeded
+            if s.source == "hand" and s.plan.is_single_tier(problem.arm.n)
+        ]
+        if informed and (io := ladder.informed_osc(problem)) is not None:
+            gains.append((*io, "informed single-tier OSC", "informed"))
+        for kp_t, kp_r, zeta, label, source in gains:
+            if not (kp_t > 0 and kp_r > 0):
+                continue
+            ratio, frac = ladder.osc_to_coords(problem, kp_t, kp_r, zeta)
+            if math.isfinite(frac):
+                params = {"zeta": zeta, "ratio": ratio, "fraction": frac}
+                out.append((params, {"source": source, "label": label}))
+    elif kind == "joint_space":
+        kp = list(b.joint_kp) * (problem.arm.n if len(b.joint_kp) == 1 else 1)
+        sets = [(kp, b.joint_zeta, "baseline: joint-space CLIK + PD", "baseline")]
+        if informed and (ij := ladder.informed_joint_gains(problem)) is not None:
+            sets.append((list(ij[0]), ij[1], "informed joint-space CLIK + PD", "informed"))
+        for kps, zeta, label, source in sets:
+            if not all(k > 0 for k in kps):
+                continue
+            dev, frac = ladder.joint_to_coords(problem, np.array(kps), zeta)
+            if math.isfinite(frac):
+                params = {"zeta": zeta, **{f"dev_{nm}": float(d) for nm, d in zip(names, dev)},
+                          "fraction": frac}
+                out.append((params, {"source": source, "label": label}))
+    return out
 
 
 def _tuned_osc_seed(

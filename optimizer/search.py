@@ -34,6 +34,7 @@ import numpy as np
 import optuna
 from optuna.trial import TrialState
 
+from . import ladder
 from .control import Controller
 from .evaluate import (
     joint_controller,
@@ -46,7 +47,7 @@ from .journal import journal_storage
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
 from .robust import RobustScore, evaluate_robust, plant_set
-from .stability import Margins, home_check
+from .stability import LinearLoop, Margins
 
 log = logging.getLogger(__name__)
 
@@ -88,6 +89,11 @@ def quiet_optuna() -> None:
     optuna.logging.set_verbosity(optuna.logging.ERROR)
     warnings.filterwarnings("ignore", category=optuna.exceptions.ExperimentalWarning)
     warnings.filterwarnings("ignore", category=FutureWarning, module="optuna")
+    # CMA-ES (baselines) does not use constraints; infeasible trials carry the penalty value
+    warnings.filterwarnings("ignore", message="Constraints have been set, but CmaEsSampler")
+    # the user's own [baseline] gains may lie outside the searched ranges: they are
+    # evaluated exactly as given all the same
+    warnings.filterwarnings("ignore", message="Fixed parameter .* is out of range")
 
 
 # -- search space ------------------------------------------------------------------
@@ -95,6 +101,15 @@ def _bandwidth_order(problem: Problem, joints: Sequence[int]) -> list[int]:
     """``joints`` from the slowest to the fastest actuator (stable for ties)."""
     bw = [problem.actuators[j].model.bandwidth_hz() for j in joints]
     return [j for _, j in sorted(zip(bw, joints, strict=True), key=lambda x: x[0])]
+
+
+def bandwidth_cuts(problem: Problem, joints: Sequence[int]) -> list[list[int]]:
+    """The strict subsets of ``joints`` a ranked tier may keep: those whose drives are at
+    least as fast as a cut, for every cut above the slowest drive among ``joints`` (drives
+    of equal bandwidth stay together). Largest first."""
+    bw = {j: problem.actuators[j].model.bandwidth_hz() for j in joints}
+    levels = sorted(set(bw.values()))
+    return [sorted(j for j in joints if bw[j] >= cut) for cut in levels[1:]]
 
 
 def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
@@ -116,8 +131,10 @@ def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
         if len(prev) < 2:
             break  # no strict non-empty subset left
         if sp.subset_mode == "ranked":
-            keep = trial.suggest_int(f"t{k}_keep", 1, len(prev) - 1)
-            joints = sorted(_bandwidth_order(problem, prev)[-keep:])
+            cuts = bandwidth_cuts(problem, prev)
+            if not cuts:
+                break  # every joint left has the same bandwidth: no faster subset
+            joints = cuts[trial.suggest_int(f"t{k}_cut", 1, len(cuts)) - 1]
         else:
             joints = [
                 j for j in prev if trial.suggest_categorical(f"t{k}_{names[j]}", [True, False])
@@ -171,10 +188,10 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
         if not set(tier.joints) < set(prev):
             return None
         if sp.subset_mode == "ranked":
-            keep = len(tier.joints)
-            if sorted(_bandwidth_order(problem, prev)[-keep:]) != list(tier.joints):
+            cuts = bandwidth_cuts(problem, prev)
+            if list(tier.joints) not in cuts:
                 return None
-            params[f"t{k}_keep"] = keep
+            params[f"t{k}_cut"] = cuts.index(list(tier.joints)) + 1
         else:
             for j in prev:
                 params[f"t{k}_{names[j]}"] = j in tier.joints
@@ -247,11 +264,16 @@ def _run_candidate(
     controller = make(problem)
     trial.set_user_attr("kind", controller.kind)
     loop = make_loop(problem, controller)
-    if not home_check(loop, problem.references[0], limits):
-        trial.set_user_attr("reason", "pre-check: margins at the home pose below the minimums")
+    loop.controller.bind(problem.references[0])
+    home = LinearLoop(loop, 0, loop.initial_state())
+    if not home.meets(limits):
+        m = home.margins(limits=limits)
+        v = max(limits.violation(m), 1e-3)
+        why = limits.shortfall(m) or "linearised loop unstable"
+        trial.set_user_attr("reason", f"pre-check at the home pose: {why}")
         trial.set_user_attr("steps", 0)
-        trial.set_constraint(CONSTRAINT, 1.0)
-        return PENALTY, None
+        trial.set_constraint(CONSTRAINT, v)
+        return penalty(v), None
 
     def on_step(i: int, running: float) -> None:
         if not prune or not math.isfinite(running):
@@ -267,9 +289,16 @@ def _run_candidate(
     trial.set_user_attr("score", score.to_dict())
     trial.set_user_attr("steps", score.nominal.steps + sum(d.steps for d in score.draws))
     trial.set_user_attr("reason", score.reason)
-    trial.set_constraint(CONSTRAINT, _violation(problem, score))
+    v = _violation(problem, score)
+    trial.set_constraint(CONSTRAINT, v)
     err = score.robust_error
-    return (err if math.isfinite(err) else PENALTY), score
+    return (err if math.isfinite(err) and v <= 0 else penalty(max(v, 1e-3))), score
+
+
+def penalty(violation: float) -> float:
+    """Objective value of an infeasible trial: PENALTY and more the further it is from
+    feasible, so that a sampler that ignores constraints (CMA-ES) still sees the way back."""
+    return PENALTY * (1.0 + min(max(violation, 0.0), 10.0))
 
 
 #: Name of the one constraint every trial sets (> 0: infeasible).
@@ -324,15 +353,14 @@ def objective(
         return run(trial, lambda p: plan_controller(p, plan), plan.label, plan.compact(n))
 
     def osc_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
+        zeta = trial.suggest_float("zeta", *sp.zeta_range)
+        ratio = trial.suggest_float("ratio", *ladder.RATIO_RANGE, log=True)
+        frac = trial.suggest_float("fraction", *ladder.FRACTION_RANGE)
+        kp_t, kp_r = ladder.osc_from_coords(problem, zeta, ratio, frac)
+        kp_t = float(np.clip(kp_t, *sp.kp_t_range)) if kp_t > 0 else sp.kp_t_range[0]
+        kp_r = float(np.clip(kp_r, *sp.kp_r_range)) if kp_r > 0 else sp.kp_r_range[0]
         plan = Plan(
-            (
-                Tier(
-                    tuple(range(n)),
-                    trial.suggest_float("kp_t", *sp.kp_t_range, log=True),
-                    trial.suggest_float("kp_r", *sp.kp_r_range, log=True),
-                    trial.suggest_float("zeta", *sp.zeta_range),
-                ),
-            ),
+            (Tier(tuple(range(n)), kp_t, kp_r, zeta),),
             label="tuned single-tier OSC",
             joint_names=problem.arm.joint_names,
         )
@@ -344,10 +372,13 @@ def objective(
 
     def joint_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         names = problem.arm.joint_names
-        kp = np.array(
-            [trial.suggest_float(f"kp_{nm}", *sp.joint_kp_range, log=True) for nm in names]
-        )
         zeta = trial.suggest_float("zeta", *sp.zeta_range)
+        dev = np.array(
+            [trial.suggest_float(f"dev_{nm}", *ladder.DEVIATION_RANGE) for nm in names]
+        )
+        frac = trial.suggest_float("fraction", *ladder.FRACTION_RANGE)
+        kp = ladder.joint_from_coords(problem, zeta, dev, frac)
+        kp = np.where(kp > 0, np.clip(kp, *sp.joint_kp_range), sp.joint_kp_range[0])
         label = "tuned joint-space CLIK + PD"
         trial.set_user_attr("tiers", 1)
         trial.set_user_attr("joint_gains", {"kp": [float(x) for x in kp], "zeta": float(zeta)})
@@ -421,11 +452,25 @@ def _redact(url: str) -> str:
     return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", url)
 
 
+def _record_worker(study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
+    """Record the worker (host:pid) on a trial before anything else runs (stale-trial
+    detection). No public API writes to another object's trial, so the storage is used."""
+    study._storage.set_trial_user_attr(trial._trial_id, "worker", _worker_id())
+
+
 class _TPE(optuna.samplers.TPESampler):
-    """TPE that records the worker (host:pid) on each trial before anything else runs."""
+    """TPE that records the worker on each trial first."""
 
     def before_trial(self, study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
-        study._storage.set_trial_user_attr(trial._trial_id, "worker", _worker_id())
+        _record_worker(study, trial)
+        super().before_trial(study, trial)
+
+
+class _CMA(optuna.samplers.CmaEsSampler):
+    """CMA-ES that records the worker on each trial first."""
+
+    def before_trial(self, study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
+        _record_worker(study, trial)
         super().before_trial(study, trial)
 
 
@@ -433,22 +478,44 @@ def _worker_id() -> str:
     return f"{HOST}:{os.getpid()}"
 
 
-def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
-    """TPE over the conditional space (multivariate, grouped), seeded."""
+#: Samplers by name: ``tpe`` for the conditional plan space, ``cmaes`` for the
+#: continuous gains of the baselines (see ``bench/baselines.py`` for why).
+SAMPLERS = ("tpe", "cmaes")
+#: Sampler of each study kind.
+STUDY_SAMPLER = {"plan": "tpe", "osc": "cmaes", "joint_space": "cmaes"}
+
+
+def make_sampler(
+    seed: int, name: str = "tpe", x0: dict[str, float] | None = None
+) -> optuna.samplers.BaseSampler:
+    """A seeded sampler: TPE over the conditional space (multivariate, grouped), or CMA-ES
+    started at ``x0`` (its parameters in the study's units) with a step of a quarter of
+    each (log) range."""
     quiet_optuna()
+    if name == "cmaes":
+        return _CMA(x0=x0, sigma0=None, seed=seed, n_startup_trials=0,
+                    warn_independent_sampling=False, consider_pruned_trials=True)
     return _TPE(seed=seed, multivariate=True, group=True, n_startup_trials=10)
 
 
 def open_study(
-    storage: str, name: str, seed: int, prune: bool, objectives: Sequence[str] = ("error",)
+    storage: str,
+    name: str,
+    seed: int,
+    prune: bool,
+    objectives: Sequence[str] = ("error",),
+    sampler: str = "tpe",
+    x0: dict[str, float] | None = None,
+    warmup: int = 0,
 ) -> optuna.Study:
     """Create or load a study (resume with the same name).
 
-    Raises InputError when the stored study has other objectives than asked for.
+    ``warmup``: steps (trajectories) before pruning may stop a trial. Raises InputError
+    when the stored study has other objectives than asked for.
     """
     quiet_optuna()
     pruner = (
-        optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
+        optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=warmup)
         if prune and len(objectives) == 1
         else optuna.pruners.NopPruner()
     )
@@ -456,13 +523,13 @@ def open_study(
     st = open_storage(storage)
     try:
         study = optuna.load_study(
-            study_name=name, storage=st, sampler=make_sampler(seed), pruner=pruner
+            study_name=name, storage=st, sampler=make_sampler(seed, sampler, x0), pruner=pruner
         )
     except KeyError:
         return optuna.create_study(
             study_name=name,
             storage=st,
-            sampler=make_sampler(seed),
+            sampler=make_sampler(seed, sampler, x0),
             pruner=pruner,
             directions=want,  # type: ignore[arg-type]
             load_if_exists=True,  # another worker may have made it meanwhile
@@ -560,13 +627,29 @@ class WorkerJob:
     prune: bool
     objectives: tuple[str, ...] = ("error",)
     actuator_files: tuple[str, ...] = ()
+    x0: tuple[tuple[str, float], ...] = ()
+    """Start of a CMA-ES sampler (parameter, value) pairs."""
+
+
+def study_options(
+    problem: Problem, kind: str, enqueue: Sequence[tuple[dict[str, Any], dict[str, Any]]] = ()
+) -> dict[str, Any]:
+    """Sampler, CMA-ES start and pruning warm-up of a study kind: CMA-ES starts from the
+    last enqueued candidate (the informed one); pruning waits for the whole nominal set."""
+    name = STUDY_SAMPLER[kind]
+    x0 = dict(enqueue[-1][0]) if name == "cmaes" and enqueue else None
+    return {"sampler": name, "x0": x0, "warmup": max(0, len(problem.references) - 1)}
 
 
 def run_worker(job: WorkerJob) -> int:
     """Run ``job.n_trials`` trials of one study in this process; returns trials run."""
     quiet_optuna()
     problem = load_problem(job.problem_path, check_reach=False, actuator_files=job.actuator_files)
-    study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives)
+    opts = study_options(problem, job.kind)
+    opts["x0"] = dict(job.x0) or None
+    study = open_study(
+        job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts
+    )
     study.optimize(
         objective(problem, job.kind, job.prune, job.objectives),
         n_trials=job.n_trials,
@@ -598,7 +681,8 @@ def run_search(
     ``objectives`` is ``("error",)`` or ``("error", "margin" | "effort")``.
     """
     objectives = tuple(objectives)
-    study = open_study(storage, study_name, seed, prune, objectives)
+    opts = study_options(problem, kind, enqueue)
+    study = open_study(storage, study_name, seed, prune, objectives, **opts)
     reclaim(study)
     for params, attrs in enqueue:
         study.enqueue_trial(params, user_attrs=attrs, skip_if_exists=True)
@@ -628,6 +712,7 @@ def run_search(
             prune,
             objectives,
             tuple(str(a) for a in problem.actuator_files),
+            tuple((opts["x0"] or {}).items()),
         )
         for i, s in enumerate(shares)
         if s > 0
@@ -677,6 +762,24 @@ def pareto_front(points: Sequence[Sequence[float]], dirs: Sequence[str]) -> list
     return out
 
 
+def late_gain(study: optuna.Study, share: float = 0.25) -> float | None:
+    """How much the best feasible value improved over the last ``share`` of the study's
+    ended trials, as a fraction (0.05: 5 % lower); None with no feasible trial before."""
+    ended = sorted(
+        (t for t in study.get_trials(deepcopy=False)
+         if t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)),
+        key=lambda t: t.number,
+    )
+    if not ended:
+        return None
+    cut = int(math.ceil(len(ended) * (1.0 - share)))
+    before = [t.values[0] for t in ended[:cut] if feasible(t)]
+    after = [t.values[0] for t in ended if feasible(t)]
+    if not before or not after:
+        return None
+    return 1.0 - min(after) / min(before)
+
+
 def best_value(study: optuna.Study) -> float | None:
     """Lowest error among feasible trials, or None."""
     vals = [t.values[0] for t in study.get_trials(deepcopy=False) if feasible(t)]
@@ -724,7 +827,8 @@ def rank(
     Ranked by error.
     """
     keep = plan_entries[:top] + [
-        e for e in plan_entries[top:] if e["source"] in ("hand", "previous") or e.get("pareto")
+        e for e in plan_entries[top:]
+        if e["source"] in ("hand", "previous", "ladder") or e.get("pareto")
     ]
     allr = sorted(keep + baselines, key=ranking_value)
     return [{"rank": i + 1, **e} for i, e in enumerate(allr)]

@@ -44,7 +44,7 @@ def test_every_trial_sets_the_feasibility_constraint(planar, tmp_path) -> None:
         if t.state.name == "COMPLETE" and t.constraints[srch.CONSTRAINT] > 0
     ]
     assert bad, "the planar space has infeasible corners; some should be met in 12 trials"
-    assert all(t.value == srch.PENALTY and t.user_attrs["reason"] for t in bad)
+    assert all(t.value >= srch.PENALTY and t.user_attrs["reason"] for t in bad)
 
 
 def test_resume_loses_and_repeats_nothing(planar, tmp_path) -> None:

@@ -12,6 +12,7 @@ so that, away from singularities, ė + K_clik e = 0. Tracking:
 
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -87,6 +88,42 @@ def clik(
     return ClikSolution(q=Q, v=V, a=A, error=E)
 
 
+#: Joint references already computed: (URDF, tip, home, reference, axes, gains) → solution.
+#: The reference object is kept in the value so that its id is not reused while cached.
+_CLIK_CACHE: OrderedDict[tuple[object, ...], tuple[Reference, ClikSolution]] = OrderedDict()
+_CLIK_CACHE_SIZE = 64
+
+
+def clik_cached(
+    arm: Arm,
+    ref: Reference,
+    axes: tuple[int, ...],
+    gain: float = 200.0,
+    lam: float = 0.01,
+    posture_gain: float = 2.0,
+) -> ClikSolution:
+    """``clik`` computed once per arm model, reference and settings in this process.
+
+    The joint reference depends on the problem only (not on the baseline's gains nor on
+    the plant), so every trial and perturbed plant of a search shares it.
+    """
+    key = (
+        arm.urdf_xml, arm.tip_frame, arm.home.tobytes(), id(ref), tuple(axes),
+        float(gain), float(lam), float(posture_gain),
+    )
+    hit = _CLIK_CACHE.get(key)
+    if hit is not None and hit[0] is ref:
+        _CLIK_CACHE.move_to_end(key)
+        return hit[1]
+    sol = clik(arm, ref, axes, gain, lam, posture_gain)
+    for a in (sol.q, sol.v, sol.a, sol.error):
+        a.setflags(write=False)
+    _CLIK_CACHE[key] = (ref, sol)
+    while len(_CLIK_CACHE) > _CLIK_CACHE_SIZE:
+        _CLIK_CACHE.popitem(last=False)
+    return sol
+
+
 class JointSpaceController:
     """Computed-torque joint PD on a CLIK joint reference."""
 
@@ -120,7 +157,6 @@ class JointSpaceController:
         self.effort = np.array(arm.effort)
         self._effort_base = self.effort.copy()
         self.data = arm.model.createData()
-        self._cache: dict[str, ClikSolution] = {}
         self.sol: ClikSolution | None = None
         self.ref: Reference | None = None
         self._rv = np.empty(3)
@@ -138,17 +174,14 @@ class JointSpaceController:
         self.effort = self._effort_base.copy() if clip else np.full_like(self.effort, np.inf)
 
     def bind(self, ref: Reference) -> None:
-        key = ref.name
-        if key not in self._cache:
-            self._cache[key] = clik(
-                self.arm,
-                ref,
-                self.settings.task_axes,
-                self.clik_gain,
-                self.clik_damping,
-                self.posture_gain,
-            )
-        self.sol = self._cache[key]
+        self.sol = clik_cached(
+            self.arm,
+            ref,
+            self.settings.task_axes,
+            self.clik_gain,
+            self.clik_damping,
+            self.posture_gain,
+        )
         self.ref = ref
 
     def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
