@@ -481,8 +481,11 @@ def _score(args: argparse.Namespace) -> int:
 def _plants_line(prob, n: int, seed: int | None = None) -> str:  # type: ignore[no-untyped-def]
     """One line on how the perturbed plants were drawn."""
     sp = prob.perturb
+    own = seed is None or seed == sp.seed
+    corner = "the first is the worst corner of the spreads, the others are " if (
+        sp.corner and own and n > 0) else ""
     return (
-        f"perturbed plants: {n}, drawn with seed {sp.seed if seed is None else seed} "
+        f"perturbed plants: {n}; {corner}drawn with seed {sp.seed if seed is None else seed} "
         f"(bandwidth ±{sp.bandwidth_rel:.0%}, 2nd-order damping ±{sp.damping_rel:.0%}, delay "
         f"±{sp.delay_ticks} ticks, payload mass ±{sp.payload_rel:.0%} and position "
         f"±{sp.payload_offset_m * 1000:g} mm, friction ±{sp.friction_rel:.0%}, own noise seed "

@@ -14,7 +14,9 @@ the stiffness of the tier below (a tier that adds less stiffness adds little but
 each at ``FRACTION`` of its limit: the home pose is one instant of many, and the fraction
 leaves room for the others (common practice, no source).
 
-Informed baselines follow the same idea: single-tier OSC at ``FRACTION`` of its limit;
+Informed baselines follow the same idea: single-tier OSC at ``FRACTION`` of its limit,
+with the ratio of rotational to translational stiffness that tracks best on the nominal
+plant among a few;
 joint-space PD with per-joint stiffness in proportion to (2ζ / (τ_j + d_j))², the
 Routh–Hurwitz bound ωn < 2ζ/τ of a unit inertia under PD through a first-order lag τ
 (tests/REFERENCES.md §5), with the joint's delay d_j added to its lag (common practice, no
@@ -32,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .control import Controller, ControlSettings
-from .evaluate import joint_controller, make_loop, plan_controller
+from .evaluate import evaluate, joint_controller, make_loop, plan_controller
 from .plan import Plan, Tier
 from .problem import Problem
 from .stability import home_check
@@ -156,17 +158,27 @@ def suggested_plan(problem: Problem, rungs: list[Rung] | None = None) -> Plan | 
     )
 
 
+#: kp_r / kp_t ratios tried for the informed single-tier OSC.
+OSC_RATIOS = (1.0, 2.0, 4.0, 8.0, 16.0)
+
+
 def informed_osc(problem: Problem) -> tuple[float, float, float] | None:
-    """(kp_t, kp_r, ζ) of single-tier OSC at ``FRACTION`` of its stiffness limit."""
-    names = problem.arm.joint_names
-    n = problem.arm.n
-
-    def make(k: float) -> Controller:
-        return plan_controller(problem, Plan((Tier(tuple(range(n)), k, k, ZETA),),
-                                             joint_names=names), kind="osc")
-
-    k = highest_stiffness(problem, make)
-    return (FRACTION * k, FRACTION * k, ZETA) if k > 0 else None
+    """(kp_t, kp_r, ζ) of single-tier OSC at ``FRACTION`` of its stiffness limit, with the
+    kp_r / kp_t of ``OSC_RATIOS`` that tracks best on the nominal plant (orientation runs
+    mostly through the fast wrist, so it often carries a stiffer loop than position)."""
+    best: tuple[float, tuple[float, float, float]] | None = None
+    for ratio in OSC_RATIOS:
+        k = FRACTION * osc_boundary(problem, ZETA, ratio)
+        if k <= 0:
+            continue
+        plan = Plan((Tier(tuple(range(problem.arm.n)), k, ratio * k, ZETA),),
+                    joint_names=problem.arm.joint_names)
+        s = evaluate(problem, plan_controller(problem, plan, kind="osc"), "informed",
+                     compute_margin=False)
+        err = s.error_index if s.feasible else math.inf
+        if best is None or err < best[0]:
+            best = (err, (k, ratio * k, ZETA))
+    return best[1] if best is not None else None
 
 
 def joint_gain_shape(problem: Problem, zeta: float = ZETA) -> np.ndarray:
@@ -182,11 +194,7 @@ def informed_joint_gains(problem: Problem) -> tuple[np.ndarray, float] | None:
     """(per-joint kp, ζ) of the joint-space baseline at ``FRACTION`` of its limit."""
     shape = joint_gain_shape(problem)
     shape = shape / shape.max()
-
-    def make(c: float) -> Controller:
-        return joint_controller(problem, c * shape, ZETA)
-
-    c = highest_stiffness(problem, make)
+    c = joint_boundary(problem, ZETA, shape)
     return (FRACTION * c * shape, ZETA) if c > 0 else None
 
 

@@ -136,6 +136,9 @@ class PerturbSpread:
     """Seed of the draws (each draw also gets its own noise seed)."""
     plants: int = 0
     """Perturbed plants every search candidate is scored on besides the nominal one [-]."""
+    corner: bool = True
+    """Whether the first of them is the worst corner of the spreads (slowest drives, one
+    more delay period, heaviest payload, least friction) instead of a random draw."""
     statistic: str = "p90"
     """Robust error over the plants: ``p90``, ``worst`` or ``mean``."""
     min_feasible_share: float = 1.0
@@ -516,6 +519,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         friction_rel=tpert.float("friction_rel", 0.3, min_value=0.0, max_value=1.0),
         seed=tpert.int("seed", 0, min_value=0),
         plants=tpert.int("plants", 0, min_value=0, max_value=200),
+        corner=tpert.bool("corner", True),
         statistic=tpert.str("statistic", "p90", choices=("p90", "worst", "mean")),
         min_feasible_share=tpert.float(
             "min_feasible_share", 1.0, min_value=0.0, max_value=1.0

@@ -25,7 +25,7 @@ SAFETY_SHORT = (
     "robot-safety standards (ISO 10218-1/-2), local codes and licensed practice."
 )
 
-#: The cautions in full (README and every report), after REFERENCES.md §8.
+#: The cautions in full (README and every report), after tests/REFERENCES.md §7.
 SAFETY_FULL = """\
 Results come from simulation of models. Unmodelled friction, elasticity, backlash, sensor
 noise and delay can destabilise gains that pass here, and the tool certifies nothing:

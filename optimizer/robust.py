@@ -74,9 +74,48 @@ def perturbed(problem: Problem, rng: np.random.Generator, index: int) -> Problem
     return dataclasses.replace(problem, arm=arm, actuators=tuple(acts), sim=sim)
 
 
-def plant_set(problem: Problem, count: int, seed: int | None = None) -> tuple[Problem, ...]:
-    """``count`` perturbed plants drawn with ``seed`` (default: ``[perturb] seed``)."""
+def corner_plant(problem: Problem) -> Problem:
+    """The worst corner of the spreads for stability: every drive at its slowest (and a
+    second-order drive at its least damped), one ``delay_ticks`` more delay on every joint,
+    the heaviest payload, the least friction (the least damping), its own noise seed."""
+    sp = problem.perturb
+    acts = []
+    for a in problem.actuators:
+        model = scaled_model(a.model, 1.0 - sp.bandwidth_rel)
+        if hasattr(model, "damping_ratio") and sp.damping_rel > 0:
+            zeta = model.damping_ratio * (1.0 - sp.damping_rel)
+            model = dataclasses.replace(model, damping_ratio=zeta)  # type: ignore[type-var]
+        acts.append(
+            dataclasses.replace(
+                a,
+                model=model,
+                delay_ticks=a.delay_ticks + sp.delay_ticks,
+                coulomb_nm=a.coulomb_nm * (1.0 - sp.friction_rel),
+                viscous_nms=a.viscous_nms * (1.0 - sp.friction_rel),
+            )
+        )
+    dev = problem.arm.deviation
+    arm = problem.arm.with_deviation(
+        dataclasses.replace(dev, payload_kg=dev.payload_kg * (1.0 + sp.payload_rel))
+    )
+    sim = dataclasses.replace(problem.sim, seed=problem.sim.seed + 7907)
+    return dataclasses.replace(problem, arm=arm, actuators=tuple(acts), sim=sim)
+
+
+def plant_set(
+    problem: Problem, count: int, seed: int | None = None, corner: bool | None = None
+) -> tuple[Problem, ...]:
+    """``count`` perturbed plants drawn with ``seed`` (default: ``[perturb] seed``).
+
+    With ``corner`` (default: ``[perturb] corner`` for the problem's own seed, off for any
+    other seed, whose plants are a check the search never saw) the first plant is
+    ``corner_plant`` and the other ``count − 1`` are drawn.
+    """
+    own = seed is None or seed == problem.perturb.seed
+    corner = (problem.perturb.corner and own) if corner is None else corner
     rng = np.random.default_rng(problem.perturb.seed if seed is None else seed)
+    if corner and count > 0:
+        return (corner_plant(problem), *(perturbed(problem, rng, i) for i in range(count - 1)))
     return tuple(perturbed(problem, rng, i) for i in range(count))
 
 

@@ -33,7 +33,7 @@ def test_zoh_equals_scipy_cont2discrete(model) -> None:
 
 
 def test_first_order_zoh_golden() -> None:
-    """a/(s+a), a = 2π·10, T = 1 ms: pole 0.9391013674, numerator 0.0608986326 (REFERENCES §5)."""
+    """a/(s+a), a = 2π·10, T = 1 ms: pole 0.9391013674, numerator 0.0608986326 (tests/REFERENCES.md §5)."""
     bank = discretize(_bank(FirstOrder(10.0)), 1e-3)
     assert bank.Ad[0, 0] == pytest.approx(0.9391013674, abs=1e-10)
     assert bank.Bd[0, 0] == pytest.approx(0.0608986326, abs=1e-10)
@@ -57,7 +57,7 @@ def test_mean_output_equals_integral_of_the_response() -> None:
 
 @_TF_WARNING
 def test_first_order_corner_is_minus_3db_and_minus_45deg() -> None:
-    """At ω = ωc the first-order lag is −3.0103 dB and −45.000° (REFERENCES §5, scipy.signal)."""
+    """At ω = ωc the first-order lag is −3.0103 dB and −45.000° (tests/REFERENCES.md §5, scipy.signal)."""
     m = FirstOrder(10.0)
     A, B, C = m.continuous()
     _, H = sg.freqresp(sg.StateSpace(A, B, C, np.zeros((1, 1))), w=[2 * math.pi * 10.0])
@@ -76,7 +76,7 @@ def test_second_order_overshoot_and_bandwidth(zeta, overshoot, bw) -> None:
 
     Overshoot: Ogata, Modern Control Engineering, 5th ed., §5-3 (equation number from
     memory); bandwidth: Nise, Control Systems Engineering (from memory); values [checked]
-    in REFERENCES §5. The step is simulated with the discrete bank itself.
+    in tests/REFERENCES.md §5. The step is simulated with the discrete bank itself.
     """
     m = SecondOrder(1.0 / (2 * math.pi), zeta)
     assert m.bandwidth_hz() * 2 * math.pi == pytest.approx(bw, abs=1e-6)

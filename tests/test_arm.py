@@ -14,7 +14,7 @@ from optimizer.control import kernels
 
 # Golden values: planar elbow manipulator (Spong, Hutchinson & Vidyasagar, "Robot Modeling
 # and Control", planar elbow manipulator example — section number from memory), recomputed
-# with numpy in shared/REFERENCES.md §1 [checked]; g = 9.81.
+# with numpy in tests/REFERENCES.md §1 [checked]; g = 9.81.
 GOLDEN_POINT = [
     (
         (0.3, -1.1),
@@ -46,7 +46,7 @@ def test_two_link_point_masses_match_closed_form(q, qd, M, Cqd, g) -> None:
 
 
 def test_two_link_home_and_rods_match_closed_form() -> None:
-    """At q = 0 M = [[5,2],[2,1]], g = (29.43, 9.81); uniform rods match REFERENCES.md §1."""
+    """At q = 0 M = [[5,2],[2,1]], g = (29.43, 9.81); uniform rods match tests/REFERENCES.md §1."""
     model = pin.buildModelFromXML(two_link_urdf())
     data = model.createData()
     np.testing.assert_allclose(pin.crba(model, data, np.zeros(2)), [[5, 2], [2, 1]], atol=1e-8)
@@ -94,7 +94,7 @@ def _pendulum_energy_drift(method: str, seconds: float) -> float:
 def test_pendulum_energy_bounded_with_semi_implicit_euler() -> None:
     """Unforced pendulum: semi-implicit Euler keeps the energy error bounded, explicit does not.
 
-    Values [checked] in REFERENCES.md §2 (θ0 = 1 rad, 1 ms): semi-implicit ≈ 1.5e-3 at 20 s
+    Values [checked] in tests/REFERENCES.md §2 (θ0 = 1 rad, 1 ms): semi-implicit ≈ 1.5e-3 at 20 s
     and 200 s; explicit 0.18 at 20 s. Bounded energy of symplectic methods: Hairer, Lubich &
     Wanner, Acta Numerica 2003. (The angle here is from the horizontal, which changes only
     the starting phase of the swing, so the bound's size is compared loosely.)

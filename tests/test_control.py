@@ -28,7 +28,7 @@ def test_osc_identities(mj) -> None:
     """Khatib 1987 identities hold: J J̄ = I, J N = 0, J M⁻¹ Nᵀ = 0, N² = N, trace N = n − 6.
 
     Source: Khatib, IEEE J. Robotics and Automation RA-3(1), 1987 (Λ, J̄, the null-space
-    torque projector), as restated in shared/REFERENCES.md §3 [checked].
+    torque projector), as restated in tests/REFERENCES.md §3 [checked].
     """
     M, J = mj
     Minv = np.linalg.inv(M)
@@ -48,7 +48,7 @@ def test_osc_identities(mj) -> None:
 
 
 def test_dynamically_consistent_inverse_minimises_kinetic_energy(mj) -> None:
-    """For a redundant arm, q̇ = J̄ẋ has less kinetic energy than q̇ = pinv(J) ẋ (REFERENCES §3)."""
+    """For a redundant arm, q̇ = J̄ẋ has less kinetic energy than q̇ = pinv(J) ẋ (tests/REFERENCES.md §3)."""
     M, J = mj
     Minv = np.linalg.inv(M)
     Jbar = Minv @ J.T @ np.linalg.inv(J @ Minv @ J.T)
@@ -122,9 +122,9 @@ def test_log3_matches_pinocchio_including_near_pi() -> None:
 
 
 def test_two_link_task_inertia_golden() -> None:
-    """Λ of the point-mass 2R arm at (0, π/2) is diag(1, 2); at (0.3, −1.1) the REFERENCES value.
+    """Λ of the point-mass 2R arm at (0, π/2) is diag(1, 2); at (0.3, −1.1) the tests/REFERENCES.md value.
 
-    Values [checked] in shared/REFERENCES.md §3 (planar position task).
+    Values [checked] in tests/REFERENCES.md §3 (planar position task).
     """
     model = pin.buildModelFromXML(two_link_urdf())
     data = model.createData()
@@ -146,7 +146,7 @@ def test_damped_least_squares_bounded_near_singularity() -> None:
     """DLS with λ = 0.01 on J = diag(1, 1e-3), e = (0, 1) gives Δq₂ = 9.9009901 (pinv: 1000).
 
     Source: damped least squares (Wampler 1986; Nakamura & Hanafusa 1986), check value
-    [checked] in shared/REFERENCES.md §4; per-direction gain σ/(σ² + λ²) ≤ 1/(2λ).
+    [checked] in tests/REFERENCES.md §4; per-direction gain σ/(σ² + λ²) ≤ 1/(2λ).
     """
     J = np.diag([1.0, 1e-3])
     dq = dls(J, 0.01) @ np.array([0.0, 1.0])

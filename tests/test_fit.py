@@ -69,7 +69,7 @@ def test_first_order_corner_within_3_percent_with_1db_noise(seed):
 def test_first_order_bandwidth_is_closed_form():
     """The −3 dB figure of a first-order fit is its corner: |1/(j+1)| = −3.0103 dB.
 
-    Source: REFERENCES.md §5 (first order 1/(s+1): −3.0103 dB and −45° at ω = 1, checked).
+    Source: tests/REFERENCES.md §5 (first order 1/(s+1): −3.0103 dB and −45° at ω = 1, checked).
     """
     fit = fit_model(first_order_log(40.0, 0.0, 0.3, 1), "first_order")
     mag, _ = fit.response(np.array([fit.bandwidth_hz]))
@@ -84,7 +84,7 @@ def test_second_order_bandwidth_matches_nise_formula():
 
     Formula ωBW = ωn √(1 − 2ζ² + √(4ζ⁴ − 4ζ² + 2)): Nise, Control Systems Engineering
     (value from memory for the edition and section); the number is checked in
-    REFERENCES.md §5. The data come from scipy.signal.freqs (reference library).
+    tests/REFERENCES.md §5. The data come from scipy.signal.freqs (reference library).
     """
     wn = 2 * np.pi * 10.0
     f = np.geomspace(0.5, 100.0, 80)

@@ -14,7 +14,7 @@ def test_iso_path_figures_hand_check() -> None:
     """Commanded (0,0,0), attained (1,0,0), (−1,0,0), (0,0,0): AT_p = 0, RT_p = 2/3 + √3.
 
     Formulas: ISO 9283:1998 path accuracy and repeatability (from memory); the hand check
-    is in shared/REFERENCES.md §6.
+    is in tests/REFERENCES.md §6.
     """
     commanded = np.zeros((1, 3))
     attained = np.array([[[1.0, 0, 0], [-1.0, 0, 0], [0.0, 0, 0]]])
@@ -24,7 +24,7 @@ def test_iso_path_figures_hand_check() -> None:
 
 
 def test_iso_constant_offset_gives_at_d_and_rt_zero() -> None:
-    """A constant offset d on every cycle gives AT_p = d and RT_p = 0 (REFERENCES §6)."""
+    """A constant offset d on every cycle gives AT_p = d and RT_p = 0 (tests/REFERENCES.md §6)."""
     commanded = np.stack([np.linspace(0, 1, 20), np.zeros(20), np.zeros(20)], axis=1)
     d = np.array([0.0, 0.003, 0.004])
     attained = np.repeat((commanded + d)[:, None, :], 4, axis=1)

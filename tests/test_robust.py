@@ -40,6 +40,29 @@ def test_perturbed_plants_stay_within_the_spreads(planar) -> None:
         assert p.arm.plant_model is not planar.arm.plant_model
 
 
+def test_the_corner_plant_sits_at_the_worst_edge_of_every_spread(planar) -> None:
+    """The search's own set starts with the worst corner for stability (slowest drives, one
+    more delay period, heaviest payload, least friction); a check drawn with another seed
+    has no corner, only random plants."""
+    sp = planar.perturb
+    own = plant_set(planar, 3)
+    c = own[0]
+    for a0, a1 in zip(planar.actuators, c.actuators, strict=True):
+        assert a1.model.bandwidth_hz() == pytest.approx(a0.model.bandwidth_hz() * (1 - sp.bandwidth_rel))
+        assert a1.delay_ticks == a0.delay_ticks + sp.delay_ticks
+        assert a1.coulomb_nm == pytest.approx(a0.coulomb_nm * (1 - sp.friction_rel))
+    assert c.arm.deviation.payload_kg == pytest.approx(
+        planar.arm.deviation.payload_kg * (1 + sp.payload_rel)
+    )
+    other = plant_set(planar, 3, seed=sp.seed + 1)
+    assert all(
+        any(a1.delay_ticks != a0.delay_ticks + sp.delay_ticks
+            for a0, a1 in zip(planar.actuators, p.actuators, strict=True))
+        or p.arm.deviation.payload_kg != c.arm.deviation.payload_kg
+        for p in other
+    )
+
+
 def test_the_plant_set_is_fixed_by_its_seed(planar) -> None:
     """The same seed gives the same plants (common random numbers for every candidate);
     another seed gives others."""

@@ -70,7 +70,7 @@ def test_radius_matches_routh_hurwitz_boundary(tmp_path, factor, stable) -> None
     criterion; the values are in tests/REFERENCES.md §5, checked by hand):
     τ = 1/(2π·10 Hz), ζ = 0.7 gives 87.96 rad/s. At 50 kHz sampling moves the boundary far
     less than 1 %, so 0.99× must be stable and 1.01× unstable, with a discrete pole modulus
-    e^(σT), |σ| ≈ 0.208 1/s (REFERENCES.md §5).
+    e^(σT), |σ| ≈ 0.208 1/s (tests/REFERENCES.md §5).
     """
     tau, zeta = 1.0 / (2 * math.pi * 10.0), 0.7
     assert 2 * zeta / tau == pytest.approx(87.96, abs=0.01)
@@ -85,7 +85,7 @@ def test_stiffness_and_bandwidth_margins_match_routh_hurwitz(tmp_path) -> None:
     """At ωn = 40 rad/s, ζ = 0.7 and τ = 1/(2π·10 Hz): holding ζ, the largest stiffness is
     kp = (2ζ/τ)², a stiffness margin of 4.836× (13.7 dB); a slower actuator τ' = bτ moves
     the boundary to ωn = 2ζ/(bτ), so the bandwidth margin is 2ζ/(τ ωn) = √4.836 = 2.199
-    (Routh–Hurwitz on τs³ + s² + kd s + kp; REFERENCES.md §5, checked)."""
+    (Routh–Hurwitz on τs³ + s² + kd s + kp; tests/REFERENCES.md §5, checked)."""
     _, ll = _slider(tmp_path, 40.0, 0.7, 50000.0, 10.0)
     assert ll.stiffness_margin() == pytest.approx(4.836, rel=0.01)
     assert ll.bandwidth_margin() == pytest.approx(2.199, rel=0.01)
@@ -95,7 +95,7 @@ def test_stiffness_and_bandwidth_margins_match_routh_hurwitz(tmp_path) -> None:
 def test_delay_margin_is_within_one_period_of_the_closed_form(tmp_path) -> None:
     """Unit mass under PD with a pure delay T: crossover ωc² = (kd² + √(kd⁴ + 4kp²))/2,
     phase margin φ = atan(kd ωc / kp), delay margin T* = φ/ωc = 18.428 ms at ωn = 40 rad/s,
-    ζ = 0.7 (closed form of the continuous loop; REFERENCES.md §5, checked).
+    ζ = 0.7 (closed form of the continuous loop; tests/REFERENCES.md §5, checked).
 
     The discrete loop differs: the command is computed from the state at the start of a
     tick and held over it (zero-order hold, about half a period of extra delay; common
