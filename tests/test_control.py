@@ -92,6 +92,26 @@ def test_kernel_matches_numpy_reference(mj, joints, lam) -> None:
     np.testing.assert_allclose(out, ref, rtol=1e-8, atol=1e-10)
 
 
+@pytest.mark.parametrize("joints", [(2, 3, 4, 5, 6), (4, 5, 6)])
+def test_a_short_tier_does_not_depend_on_the_task_units(mj, joints) -> None:
+    """With fewer joints than task rows, the tier's torque is the same whether orientation
+    is written in radians or milliradians (rows of J and a scaled by 1000): the Λ metric
+    is unit-free, a plain least squares is not. Derivation: rows scaled by D turn
+    Λ = (J M⁻¹ Jᵀ)⁻¹ into D⁻¹ Λ D⁻¹, so Bᵀ Λ B and Bᵀ Λ a do not change."""
+    M, J = mj
+    Minv = np.linalg.inv(M)
+    a = np.array([0.2, -0.4, 1.0, 0.5, 0.1, -0.3])
+    D = np.diag([1.0, 1.0, 1.0, 1e3, 1e3, 1e3])
+    t1 = tier_torque(Minv, J, np.array(joints), a, 0.0)
+    t2 = tier_torque(Minv, D @ J, np.array(joints), D @ a, 0.0)
+    np.testing.assert_allclose(t2, t1, rtol=1e-7, atol=1e-9)
+    S = np.eye(7)[list(joints)]
+    B = J @ Minv @ S.T
+    plain = S.T @ np.linalg.lstsq(B, a, rcond=None)[0]
+    plain_mrad = S.T @ np.linalg.lstsq(D @ B, D @ a, rcond=None)[0]
+    assert not np.allclose(plain, plain_mrad, rtol=1e-3)  # a plain least squares would move
+
+
 def test_kernel_reports_singular_tier() -> None:
     """A tier whose joints cannot move the task at all and λ = 0 is reported, not NaN."""
     Minv = np.eye(3)

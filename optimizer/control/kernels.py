@@ -162,17 +162,43 @@ def tier_solve(
                 acc += X[i, c] * ym[c]
             tau[joints[i]] += acc
     else:
+        # fewer joints than rows: least squares in the metric of Λ_rows = (J_r M⁻¹ J_rᵀ)⁻¹,
+        # u = (Bᵀ Λ B + λW)⁻¹ Bᵀ Λ a, so that the directions the tier cannot reach are judged
+        # by the arm's own inertia rather than by mixing metres with radians
+        Lm = G[: m * m].reshape((m, m))
+        for i in range(m):
+            ri = rows[i]
+            for c in range(i + 1):
+                rc = rows[c]
+                acc = 0.0
+                for k in range(J.shape[1]):
+                    jik = J[ri, k]
+                    if jik != 0.0:
+                        for q in range(J.shape[1]):
+                            acc += jik * Minv[k, q] * J[rc, q]
+                Lm[i, c] = acc
+                Lm[c, i] = acc
+            Lm[i, i] += 1e-12 * (1.0 + Lm[i, i])
+        if not cholesky(Lm):
+            return SINGULAR
+        cm = col[:m]
+        for c in range(s):  # X[c, :] = (Λ B)[:, c]
+            for i in range(m):
+                cm[i] = B[i, c]
+            cho_solve_vec(Lm, cm)
+            for i in range(m):
+                X[c, i] = cm[i]
         Gs = G[: s * s].reshape((s, s))
         ys = y[:s]
         for i in range(s):
             acc = 0.0
             for r in range(m):
-                acc += B[r, i] * a[r]
+                acc += X[i, r] * a[r]
             ys[i] = acc
             for c in range(s):
                 acc = 0.0
                 for r in range(m):
-                    acc += B[r, i] * B[r, c]
+                    acc += X[i, r] * B[r, c]
                 Gs[i, c] = acc + lam * W[i, c]
         if not cholesky(Gs):
             return SINGULAR

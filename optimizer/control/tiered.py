@@ -11,11 +11,17 @@ e = [p_d − p; log3(R_d Rᵀ)] and velocity error ė = ẋ_d − J v:
 
 then clipped to the effort limits. τ_k is the least M⁻¹-weighted torque on the joints
 of S_k that gives tip acceleration a_k; with S_k = all joints and λ = 0 it equals
-Jᵀ Λ a_k, Λ = (J M⁻¹ Jᵀ)⁻¹. When a tier has fewer joints than task rows, the
-push-through identity W⁻¹Bᵀ(BW⁻¹Bᵀ + λI)⁻¹ = (BᵀB + λW)⁻¹Bᵀ gives the same τ_k for
-λ > 0 and its least-squares limit at λ = 0. A tier with kp_t = 0 (kp_r = 0) drops
-the position (orientation) rows: it leaves that part of the task alone. Tier 1
-always keeps every task row, since it carries the feed-forward.
+Jᵀ Λ a_k, Λ = (J M⁻¹ Jᵀ)⁻¹. A tier with fewer joints than task rows cannot give every
+a_k; it gives the task acceleration closest to a_k in the metric of the arm's task-space
+inertia Λ_k = (J_k M⁻¹ J_kᵀ)⁻¹ (J_k: the tier's rows),
+
+    τ_k = S_kᵀ (B_kᵀ Λ_k B_k + λ_k W_k)⁻¹ B_kᵀ Λ_k a_k,
+
+so it acts only where its joints reach, and which directions count as reached does not
+depend on the units of the task (metres against radians): a plain least squares would
+mix them. A tier with kp_t = 0 (kp_r = 0) drops the position (orientation) rows: it
+leaves that part of the task alone. Tier 1 always keeps every task row, since it carries
+the feed-forward.
 """
 
 from __future__ import annotations
@@ -33,11 +39,15 @@ from .base import ControlSettings
 def tier_torque(
     Minv: np.ndarray, J: np.ndarray, joints: np.ndarray, a: np.ndarray, lam: float = 0.0
 ) -> np.ndarray:
-    """τ_k = Sᵀ W⁻¹ Bᵀ (B W⁻¹ Bᵀ + λI)⁻¹ a, plain numpy (the reference form)."""
+    """The tier law in plain numpy (the reference form; ``J`` holds the tier's rows):
+    Sᵀ W⁻¹ Bᵀ (B W⁻¹ Bᵀ + λI)⁻¹ a, or Sᵀ (Bᵀ Λ B + λW)⁻¹ Bᵀ Λ a with fewer joints than rows."""
     n = Minv.shape[0]
     S = np.eye(n)[joints]
     B = J @ Minv @ S.T
     W = S @ Minv @ S.T
+    if len(joints) < J.shape[0]:
+        Lam = np.linalg.inv(J @ Minv @ J.T)
+        return S.T @ np.linalg.solve(B.T @ Lam @ B + lam * W, B.T @ Lam @ a)
     WiBt = np.linalg.solve(W, B.T)
     return S.T @ WiBt @ np.linalg.solve(B @ WiBt + lam * np.eye(J.shape[0]), a)
 
