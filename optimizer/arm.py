@@ -9,10 +9,12 @@ makes tracking error honest (``DESIGN.md``, "What makes the simulation honest").
 from __future__ import annotations
 
 import logging
+import math
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pinocchio as pin
@@ -199,22 +201,9 @@ def read_urdf(path: Path, key: str, problem_path: object) -> str:
     ``<collision>`` elements are dropped, so no mesh path the file names is ever opened
     (the tool needs no geometry). Every refusal is a ProblemError naming the file.
     """
-    try:
-        size = path.stat().st_size
-        if size > MAX_URDF_BYTES:
-            raise ProblemError(
-                problem_path,
-                key,
-                f"URDF file {path} is {size / 2**20:.1f} MiB; the limit is "
-                f"{MAX_URDF_BYTES / 2**20:.0f} MiB (a kinematic model needs far less)",
-            )
-        with open(path, "rb") as f:
-            raw = f.read(MAX_URDF_BYTES + 1)
-        text = raw.decode("utf-8")
-    except FileNotFoundError as err:
-        raise ProblemError(problem_path, key, f"URDF file not found: {path}") from err
-    except (OSError, UnicodeDecodeError) as err:
-        raise ProblemError(problem_path, key, f"URDF file {path} could not be read: {err}") from err
+    from .inputs import read_text
+
+    text = read_text(path, "URDF", ProblemError, key, problem_path)
     return sanitize_urdf(text, f"URDF file {path}", key, problem_path)
 
 
@@ -240,7 +229,113 @@ def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
     for parent in root.iter():
         for child in [c for c in parent if c.tag in ("visual", "collision")]:
             parent.remove(child)
+    check_urdf_content(root, what, key, problem_path)
     return ET.tostring(root, encoding="unicode")
+
+
+def _numbers(el: Any, attr: str, count: int, default: str | None, where: str) -> list[float]:
+    raw = el.get(attr, default)
+    if raw is None:
+        raise ValueError(f"{where} has no {attr}")
+    parts = raw.split()
+    try:
+        vals = [float(x) for x in parts]
+    except ValueError:
+        raise ValueError(f"{where} {attr}='{raw[:40]}' is not {count} number(s)") from None
+    if len(vals) != count or not all(math.isfinite(v) for v in vals):
+        raise ValueError(f"{where} {attr}='{raw[:40]}' needs {count} finite number(s)")
+    return vals
+
+
+def check_urdf_content(root: Any, what: str, key: str, problem_path: object) -> None:
+    """Refuse physically meaningless or unsupported content before pinocchio sees it: link
+    masses and inertias (positive mass, positive definite inertia obeying the triangle
+    inequality), origins and axes (three finite numbers, a non-zero axis), mimic joints,
+    and anything but a tree of links (a link with two parents, a loop, several roots)."""
+    try:
+        links = {}
+        for link in root.findall("link"):
+            name = link.get("name")
+            if not name:
+                raise ValueError("a <link> has no name")
+            if name in links:
+                raise ValueError(f"link '{name}' is defined twice")
+            links[name] = link
+            inertial = link.find("inertial")
+            if inertial is None:
+                continue
+            where = f"link '{name}' <inertial>"
+            origin = inertial.find("origin")
+            if origin is not None:
+                _numbers(origin, "xyz", 3, "0 0 0", f"{where} <origin>")
+                _numbers(origin, "rpy", 3, "0 0 0", f"{where} <origin>")
+            mass_el = inertial.find("mass")
+            (mass,) = _numbers(mass_el, "value", 1, None, f"{where} <mass>") if (
+                mass_el is not None) else (0.0,)
+            inertia = inertial.find("inertia")
+            I = np.zeros((3, 3))
+            if inertia is not None:
+                vals = {k: _numbers(inertia, k, 1, "0", f"{where} <inertia>")[0]
+                        for k in ("ixx", "iyy", "izz", "ixy", "ixz", "iyz")}
+                I = np.array([[vals["ixx"], vals["ixy"], vals["ixz"]],
+                              [vals["ixy"], vals["iyy"], vals["iyz"]],
+                              [vals["ixz"], vals["iyz"], vals["izz"]]])
+            if mass < 0 or (mass == 0 and np.any(I != 0)):
+                raise ValueError(f"{where} has mass {mass:g} kg: a link's mass must be > 0")
+            if mass > 0:
+                ev = np.linalg.eigvalsh(I)
+                if ev[0] <= 0:
+                    raise ValueError(f"{where}: the inertia is not positive definite "
+                                     f"(principal moments {', '.join(f'{x:.3g}' for x in ev)})")
+                if ev[0] + ev[1] < ev[2] * (1 - 1e-9):
+                    raise ValueError(f"{where}: the principal moments {ev[0]:.3g}, {ev[1]:.3g},"
+                                     f" {ev[2]:.3g} break the triangle inequality (no rigid "
+                                     "body has them)")
+        parent_of: dict[str, str] = {}
+        for joint in root.findall("joint"):
+            jname = joint.get("name") or "?"
+            where = f"joint '{jname}'"
+            if joint.find("mimic") is not None:
+                raise ValueError(f"{where} is a <mimic> joint; coupled joints are not "
+                                 "supported (make it fixed, or model it as its own joint)")
+            p_el, c_el = joint.find("parent"), joint.find("child")
+            if p_el is None or c_el is None:
+                raise ValueError(f"{where} needs a <parent> and a <child> link")
+            parent, child = p_el.get("link", ""), c_el.get("link", "")
+            for ln in (parent, child):
+                if ln not in links:
+                    raise ValueError(f"{where} names link '{ln}', which is not defined")
+            if child in parent_of:
+                raise ValueError(f"{where}: link '{child}' already has a parent joint (a "
+                                 "closed loop or a second parent; only trees are supported)")
+            parent_of[child] = parent
+            origin = joint.find("origin")
+            if origin is not None:
+                _numbers(origin, "xyz", 3, "0 0 0", f"{where} <origin>")
+                _numbers(origin, "rpy", 3, "0 0 0", f"{where} <origin>")
+            axis = joint.find("axis")
+            if axis is not None and joint.get("type") not in ("fixed", "floating"):
+                ax = _numbers(axis, "xyz", 3, "1 0 0", f"{where} <axis>")
+                if math.sqrt(sum(x * x for x in ax)) < 1e-9:
+                    raise ValueError(f"{where} <axis> is zero: a joint needs a direction")
+            limit = joint.find("limit")
+            if limit is not None:
+                for attr in ("effort", "velocity", "lower", "upper"):
+                    if limit.get(attr) is not None:
+                        _numbers(limit, attr, 1, None, f"{where} <limit>")
+        for start in parent_of:  # a loop never reaches a root
+            seen, cur = set(), start
+            while cur in parent_of:
+                if cur in seen:
+                    raise ValueError(f"links form a closed loop through '{cur}'")
+                seen.add(cur)
+                cur = parent_of[cur]
+        roots = [ln for ln in links if ln not in parent_of]
+        if len(roots) != 1:
+            raise ValueError(f"needs exactly one root link, found {len(roots)}: "
+                             + ", ".join(roots[:5]))
+    except ValueError as err:
+        raise ProblemError(problem_path, key, f"{what}: {err}") from err
 
 
 def link_inertials(urdf_xml: str) -> dict[str, pin.Inertia]:

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from . import __version__
-from .exceptions import InputError, TierplanError
+from .exceptions import InputError, TierplanError, printable
 
 if TYPE_CHECKING:
     pass
@@ -342,12 +342,22 @@ def main(argv: Sequence[str] | None = None) -> int:
     except InputError as err:
         if args.debug:
             raise
-        print(f"tierplan: error: {err}", file=sys.stderr)
+        print(f"tierplan: error: {printable(str(err))}", file=sys.stderr)
         return EXIT_INPUT
     except TierplanError as err:
         if args.debug:
             raise
-        print(f"tierplan: error: {err}", file=sys.stderr)
+        print(f"tierplan: error: {printable(str(err))}", file=sys.stderr)
+        return EXIT_FAILED
+    except OSError as err:  # a results folder or file that cannot be written
+        if args.debug:
+            raise
+        where = f"{err.filename}: " if getattr(err, "filename", None) else ""
+        print(
+            f"tierplan: error: {printable(where)}could not write: {err.strerror or err} "
+            "(nothing already written was changed)",
+            file=sys.stderr,
+        )
         return EXIT_FAILED
     except KeyboardInterrupt:
         print("tierplan: interrupted", file=sys.stderr)
@@ -1083,7 +1093,7 @@ def _write_fit(args: argparse.Namespace, fit, out) -> None:  # type: ignore[no-u
     note = f"fitted from {args.log.name} on {datetime.date.today().isoformat()} by tierplan fit"
     validate = None
     target = Path(args.write)
-    if target.is_file() and "arm" in load_toml(target, InputError):
+    if target.is_file() and "arm" in load_toml(target, InputError, kind="actuator file"):
 
         def validate(p: Path) -> object:
             from .problem import load_problem

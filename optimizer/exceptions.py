@@ -7,6 +7,15 @@ class TierplanError(Exception):
     """Base class of every error this package raises on purpose."""
 
 
+def printable(text: str, limit: int = 2000) -> str:
+    """``text`` safe for a terminal line: control characters (newlines, escape sequences)
+    shown escaped, at most ``limit`` characters."""
+    out = "".join(
+        c if (32 <= ord(c) != 127 and not 0x80 <= ord(c) < 0xA0) else repr(c)[1:-1] for c in text
+    )
+    return out if len(out) <= limit else out[: limit - 1] + "…"
+
+
 class InputError(TierplanError):
     """A user file is wrong: says which file, which key, and what is wrong.
 

@@ -102,12 +102,9 @@ def read_log(path: Path) -> Log:
     Lines starting with ``#`` are comments. Raises LogError naming the file, the column
     (and row) and what is wrong.
     """
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except FileNotFoundError as err:
-        raise LogError(path, "", "no such file") from err
-    except (OSError, UnicodeDecodeError) as err:
-        raise LogError(path, "", f"could not be read: {err}") from err
+    from .inputs import read_text
+
+    text = read_text(path, "bench log", LogError)
     lines = [(i + 1, ln) for i, ln in enumerate(text.splitlines())]
     lines = [(i, ln) for i, ln in lines if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:

@@ -170,6 +170,10 @@ def parse_plan(data: dict[str, Any], joint_names: Sequence[str], path: object) -
     """Build a plan from parsed TOML; errors name ``path`` and the key."""
     r = TableReader(data, path, "", PlanError)
     label = r.str("label", Path(str(path)).stem if path else "plan")
+    if any(ord(c) < 32 or ord(c) == 127 or 0x80 <= ord(c) < 0xA0 for c in label):
+        raise r.fail("label", "contains control characters (a newline or an escape sequence)")
+    if len(label) > 200:
+        raise r.fail("label", f"is {len(label)} characters long; at most 200")
     nested = r.bool("nested", False)
     tier_tables = r.table_list("tier")
     r.done()
@@ -214,4 +218,4 @@ def parse_plan(data: dict[str, Any], joint_names: Sequence[str], path: object) -
 
 def load_plan(path: Path, joint_names: Sequence[str]) -> Plan:
     """Read and validate a plan file."""
-    return parse_plan(load_toml(path, PlanError), joint_names, path)
+    return parse_plan(load_toml(path, PlanError, kind="plan"), joint_names, path)

@@ -11,6 +11,7 @@ import dataclasses
 import hashlib
 import logging
 import math
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,6 +37,9 @@ from .trajectories import (
 )
 
 log = logging.getLogger(__name__)
+
+#: What a problem's name may be (it names a folder under results/).
+SAFE_NAME = re.compile(r"[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}")
 
 #: Largest IK error along a trajectory before it counts as out of reach [m], [rad].
 REACH_POS_M = 1e-3
@@ -262,7 +266,7 @@ def apply_actuator_file(
     ``data`` is not changed; the second item names the joints changed. Joint names
     are checked against the URDF when the result is parsed.
     """
-    new = load_toml(act_path, ProblemError)
+    new = load_toml(act_path, ProblemError, kind="actuator file")
     root = TableReader(new, act_path, "", ProblemError)
     root.str("description", "")
     tacts = root.table("actuators", required=True)
@@ -294,6 +298,11 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     base = path.parent
     warnings: list[str] = []
     name = root.str("name", path.parent.name if path.name == "problem.toml" else path.stem)
+    if not SAFE_NAME.fullmatch(name):
+        raise ProblemError(
+            path, "name", f"'{name[:40]}' cannot name a results folder: use letters, digits, "
+            "'.', '_' and '-' (at most 64, not starting with '.')"
+        )
     description = root.str("description", "")
 
     # -- arm -----------------------------------------------------------------
@@ -308,15 +317,17 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     tp = root.table("plant")
     dev_args: dict[str, Any] = {}
     dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0, max_value=10_000.0)
-    dev_args["payload_offset_m"] = tp.floats("payload_offset_m", (0.0, 0.0, 0.0), length=3)
+    dev_args["payload_offset_m"] = tp.floats(
+        "payload_offset_m", (0.0, 0.0, 0.0), length=3, min_value=-10.0, max_value=10.0
+    )
     dev_args["payload_radius_m"] = tp.float(
-        "payload_radius_m", 0.03, min_value=0.0, strict_min=True
+        "payload_radius_m", 0.03, min_value=0.0, strict_min=True, max_value=10.0
     )
     dev_args["mass_scale"] = tp.float(
         "mass_scale", 1.0, min_value=0.0, max_value=100.0, strict_min=True
     )
     tl = tp.table("link_mass_scale")
-    lms = {k: tl.float(k, min_value=0.0, strict_min=True) for k in list(tl.data)}
+    lms = {k: tl.float(k, min_value=0.0, strict_min=True, max_value=100.0) for k in list(tl.data)}
     tl.done()
     dev_args["link_mass_scale"] = lms
     tp.done()
@@ -468,6 +479,10 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     )
     tsim.done()
     tsc.done()
+    if scoring.pos_weight == 0.0 and scoring.rot_weight == 0.0:
+        raise ProblemError(
+            path, "scoring.pos_weight", "and rot_weight are both 0: every plan would score 0"
+        )
 
     tb = root.table("baseline")
     baseline = BaselineGains(
@@ -508,6 +523,11 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
                 f"{s.duration_s:g} s at {rate:g} Hz is {ticks:.3g} control periods; the limit "
                 f"is {MAX_TICKS:.0e} per trajectory (shorten it or lower control.rate_hz)",
             )
+    if all(s.duration_s <= scoring.settle_s for s in specs):
+        raise ProblemError(
+            path, "simulation.settle_s", f"{scoring.settle_s:g} s is as long as every "
+            "trajectory: nothing would be scored (make it shorter than the trajectories)"
+        )
     search = _read_search(root.table("search"), names)
     tpert = root.table("perturb")
     perturb = PerturbSpread(

@@ -17,7 +17,7 @@ from typing import Any
 
 from .compare import Candidate
 from .evaluate import Score, evaluate, joint_controller, joint_gains_text, plan_controller
-from .exceptions import InputError
+from .exceptions import InputError, printable
 from .plan import load_plan
 from .problem import Problem, load_problem
 from .report import SAFETY_FULL, change, fmt, write_atomic
@@ -64,11 +64,13 @@ class RunFolder:
 
 def read_json(path: Path, missing: str = "not found: give a search's results folder") -> Any:
     """A JSON file of a run folder; missing or unreadable is an InputError naming it."""
+    from .inputs import read_text
+
+    if not Path(path).exists():
+        raise InputError(path, "", missing)
     try:
-        return json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError as err:
-        raise InputError(path, "", missing) from err
-    except (OSError, ValueError) as err:
+        return json.loads(read_text(path, "results file"))
+    except ValueError as err:
         raise InputError(path, "", f"could not be read as JSON: {err}") from err
 
 
@@ -83,6 +85,10 @@ def read_run(path: Path) -> RunFolder:
         raise InputError(path / "run.json", "", "must hold a JSON object")
     if not isinstance(ranking, list) or not all(isinstance(e, dict) for e in ranking):
         raise InputError(path / "ranking.json", "", "must hold a list of ranked entries")
+    for e in ranking:  # labels and plan texts reach the terminal and the report
+        for k in ("label", "plan_text", "source"):
+            if isinstance(e.get(k), str):
+                e[k] = printable(e[k], 300)
     trials: list[dict[str, str]] = []
     if (path / "trials.csv").is_file():
         with open(path / "trials.csv", newline="", encoding="utf-8") as f:

@@ -20,16 +20,12 @@ else:  # pragma: no cover
 _MISSING = object()
 
 
-def load_toml(path: Path, error: type[InputError]) -> dict[str, Any]:
-    """Parse a TOML file; a missing file or a syntax error becomes ``error``."""
-    try:
-        raw = Path(path).read_bytes()
-    except FileNotFoundError as err:
-        raise error(path, "", "file not found") from err
-    except IsADirectoryError as err:
-        raise error(path, "", "is a folder, expected a TOML file") from err
-    except OSError as err:
-        raise error(path, "", f"could not be read: {err.strerror or err}") from err
+def load_toml(path: Path, error: type[InputError], kind: str = "problem") -> dict[str, Any]:
+    """Parse a TOML file of ``kind`` (see ``inputs.LIMITS``); a missing, special or oversize
+    file or a syntax error becomes ``error``."""
+    from .inputs import read_bytes
+
+    raw = read_bytes(path, kind, error)
     try:
         return tomllib.loads(raw.decode("utf-8"))
     except UnicodeDecodeError as err:
@@ -120,10 +116,10 @@ class TableReader:
         strict_lo: builtins.bool,
     ) -> builtins.float:
         if isinstance(v, bool) or not isinstance(v, (int, float)):
-            raise self.fail(key, f"must be a number, got {v!r}")
+            raise self.fail(key, f"must be a number, got {repr(v)[:60]}")
         x = float(v)
         if not math.isfinite(x):
-            raise self.fail(key, f"must be finite, got {v!r}")
+            raise self.fail(key, f"must be finite, got {repr(v)[:60]}")
         if lo is not None and (x < lo or (strict_lo and x <= lo)):
             raise self.fail(key, f"must be {'>' if strict_lo else '>='} {lo:g}, got {v!r}")
         if hi is not None and x > hi:
@@ -155,15 +151,16 @@ class TableReader:
         default: Any = _MISSING,
         length: builtins.int | None = None,
         min_value: builtins.float | None = None,
+        max_value: builtins.float | None = None,
     ) -> Any:
         v = self.raw(key, default)
         if v is default and default is not _MISSING:
             return v
         if not isinstance(v, list):
-            raise self.fail(key, f"must be a list of numbers, got {v!r}")
+            raise self.fail(key, f"must be a list of numbers, got {str(v)[:60]!r}")
         if length is not None and len(v) != length:
             raise self.fail(key, f"must have {length} numbers, got {len(v)}")
-        return tuple(self._check_number(key, x, min_value, None, False) for x in v)
+        return tuple(self._check_number(key, x, min_value, max_value, False) for x in v)
 
     def strings(self, key: builtins.str, default: Any = _MISSING) -> Any:
         v = self.raw(key, default)

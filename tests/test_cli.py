@@ -99,6 +99,28 @@ BAD = [
         "control.task_axes",
         "'pitch' is not an axis",
     ),
+    ("name-path", [('name = "planar3"', 'name = "../../x"')], "name", "cannot name a results"),
+    ("name-abs", [('name = "planar3"', 'name = "/tmp/x"')], "name", "cannot name a results"),
+    (
+        "weights-zero",
+        [("rot_scale_deg = 0.1", "rot_scale_deg = 0.1\npos_weight = 0.0\nrot_weight = 0.0")],
+        "scoring.pos_weight",
+        "every plan would score 0",
+    ),
+    ("settle-too-long", [("settle_s = 0.1", "settle_s = 5.0")], "simulation.settle_s",
+     "nothing would be scored"),
+    (
+        "payload-offset-huge",
+        [("payload_offset_m = [0.02, 0.0, 0.0]", "payload_offset_m = [1e200, 0.0, 0.0]")],
+        "plant.payload_offset_m",
+        "must be <= 10",
+    ),
+    (
+        "old-min-margin",
+        [("margin_samples = 2", "margin_samples = 2\nmin_margin = 0.0")],
+        "simulation.min_margin",
+        "was replaced by min_stiffness_margin",
+    ),
 ]
 
 
@@ -113,6 +135,33 @@ def test_bad_problem_gives_one_line_and_exit_2(tmp_path, capsys, case, edits, wh
     assert err.startswith(f"tierplan: error: {path}")
     assert where in err
     assert why in err
+
+
+def test_plan_label_with_control_characters_is_refused(tmp_path, capsys) -> None:
+    """A plan label holding an escape sequence or a newline never reaches the terminal."""
+    plan = tmp_path / "p.toml"
+    text = (PLANAR_PLANS / "osc.toml").read_text()
+    plan.write_text(text.replace('label = "single-tier OSC kp 1000"',
+                                 'label = "x\\u001b[2Jfake\\nline"'))
+    assert main(["score", str(PLANAR), "--plan", str(plan)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "label" in err and "control characters" in err
+    assert "\x1b" not in err
+
+
+def test_unwritable_results_file_is_one_line(tmp_path, capsys) -> None:
+    """--json into a folder that cannot be written: one line, exit 1, no traceback."""
+    import os
+
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    (locked / "sub").write_text("a file where a folder should be")
+    rc = main(["score", str(PLANAR), "--plan", str(PLANAR_PLANS / "osc.toml"), "--no-margin",
+               "--json", str(locked / "sub" / "x.json")])
+    err = capsys.readouterr().err
+    assert rc == 1 and err.count("\n") == 1 and "could not write" in err
+    assert "Traceback" not in err
+    assert os.path.isfile(locked / "sub")
 
 
 def test_missing_problem_file(tmp_path, capsys) -> None:

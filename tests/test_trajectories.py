@@ -81,7 +81,7 @@ def test_csv_poses_interpolate_and_hold(tmp_path) -> None:
         ("time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n", "at least 2 poses"),
         (
             "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,a,0,0,0,0,0\n",
-            "line 3: not a number",
+            "line 3: a value is not a number",
         ),
         (
             "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n1,nan,0,0,0,0,0\n",

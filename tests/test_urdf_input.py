@@ -65,7 +65,7 @@ def test_oversize_urdf_is_refused_without_reading_it(tmp_path):
     prob, urdf = _copy(tmp_path)
     with open(urdf, "r+b") as f:
         f.truncate(MAX_URDF_BYTES + 1)
-    with pytest.raises(ProblemError, match="the limit is 8 MiB"):
+    with pytest.raises(ProblemError, match="the limit for a URDF is 8 MiB"):
         load_problem(prob, check_reach=False)
 
 
@@ -101,3 +101,59 @@ def test_mesh_paths_are_never_opened(tmp_path):
     )
     assert out.returncode == 0, out.stderr
     assert out.stdout.strip() == "3"
+
+
+# -- content: physically meaningless or unsupported models --------------------------
+def _edit(tmp_path, old: str, new: str):
+    _, urdf = _copy(tmp_path)
+    text = urdf.read_text()
+    assert old in text, old
+    return _copy(tmp_path, text.replace(old, new, 1))
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "why"),
+    [
+        ('<mass value="2.0"/>', '<mass value="heavy"/>', "is not 1 number"),
+        ('<mass value="2.0"/>', '<mass value="-2.0"/>', "mass must be > 0"),
+        ('<mass value="2.0"/>', '<mass value="nan"/>', "finite"),
+        ('ixx="0.001"', 'ixx="-0.001"', "not positive definite"),
+        ('iyy="0.0272"', 'iyy="0.5"', "triangle inequality"),
+        ('<axis xyz="0 -1 0"/>', '<axis xyz="0 0 0"/>', "axis> is zero"),
+        ('<axis xyz="0 -1 0"/>', '<axis xyz="0 -1"/>', "needs 3 finite"),
+        ('<child link="fore"/>', '<child link="upper"/>', "already has a parent"),
+        ('<parent link="base_link"/>', '<parent link="hand"/>', "closed loop"),
+        ("</joint>", '<mimic joint="shoulder"/></joint>', "mimic"),
+    ],
+    ids=["mass-text", "mass-negative", "mass-nan", "inertia-negative", "triangle",
+         "axis-zero", "axis-two-numbers", "second-parent", "loop", "mimic"],  # fmt: skip
+)
+def test_meaningless_urdf_content_is_one_line(tmp_path, capsys, old, new, why):
+    """Each gives one line naming the URDF and what is wrong, exit 2, before pinocchio runs
+    (a closed loop used to crash it; a negative mass used to be scored)."""
+    prob, urdf = _edit(tmp_path, old, new)
+    with pytest.raises(ProblemError, match=why):
+        load_problem(prob, check_reach=False)
+    assert main(["check", str(prob)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and str(urdf) in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("kind", ["dev-zero", "fifo", "folder"])
+def test_special_files_are_refused_without_reading(tmp_path, capsys, kind):
+    """A problem, plan or actuator file that is /dev/zero, a FIFO nobody writes or a folder
+    gives one line, exit 2, at once (it used to read gigabytes or hang)."""
+    target = tmp_path / "special"
+    if kind == "dev-zero":
+        target = "/dev/zero"
+    elif kind == "fifo":
+        os.mkfifo(target)
+    else:
+        target.mkdir()
+    for args in (["check", str(target)],
+                 ["score", str(PLANAR), "--plan", str(target)],
+                 ["swap", str(PLANAR), "--actuators", str(target), "--from", str(tmp_path)]):
+        assert main(args) == 2, args
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and "Traceback" not in err
+        assert "not a regular file" in err or "folder" in err

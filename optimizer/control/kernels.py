@@ -6,9 +6,35 @@ The readable form of the same maths is in ``tiered.py``; tests check they agree.
 from __future__ import annotations
 
 import math
+import os
+import tempfile
+from pathlib import Path
 
+import numba
 import numpy as np
 from numba import njit
+
+
+def _writable_cache() -> None:
+    """Compiled kernels are cached beside this file; where that folder cannot be written
+    (an installed, read-only package) they go to a folder of the user's in the temporary
+    directory instead of failing at import."""
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        return
+    here = Path(__file__).resolve().parent / "__pycache__"
+    try:
+        here.mkdir(exist_ok=True)
+        ok = os.access(here, os.W_OK)
+    except OSError:
+        ok = False
+    if not ok:
+        uid = os.getuid() if hasattr(os, "getuid") else 0
+        numba.config.CACHE_DIR = str(  # type: ignore[attr-defined]
+            Path(tempfile.gettempdir()) / f"tierplan-numba-{uid}"
+        )
+
+
+_writable_cache()
 
 OK = 0
 SINGULAR = 1

@@ -53,12 +53,13 @@ class CsvPoses:
     @classmethod
     def from_file(cls, path: Path) -> CsvPoses:
         """Read a pose CSV; raise ValueError with the line number for bad content."""
+        from ..exceptions import InputError
+        from ..inputs import read_text
+
         try:
-            text = path.read_text(encoding="utf-8")
-        except FileNotFoundError as err:
-            raise ValueError(f"pose file not found: {path}") from err
-        except (OSError, UnicodeDecodeError) as err:
-            raise ValueError(f"pose file {path} could not be read: {err}") from err
+            text = read_text(path, "trajectory CSV")
+        except InputError as err:
+            raise ValueError(err.reason) from err
         rows = list(csv.reader(line for line in text.splitlines() if line.strip()))
         if not rows or tuple(c.strip() for c in rows[0]) != CSV_COLUMNS:
             raise ValueError(f"{path}: the header must be {','.join(CSV_COLUMNS)}")
@@ -66,8 +67,8 @@ class CsvPoses:
         for i, row in enumerate(rows[1:], start=2):
             try:
                 vals = [float(x) for x in row]
-            except ValueError as err:
-                raise ValueError(f"{path} line {i}: not a number ({err})") from err
+            except ValueError as err:  # the content is not quoted: the file may be anyone's
+                raise ValueError(f"{path} line {i}: a value is not a number") from err
             if len(vals) != len(CSV_COLUMNS) or not np.all(np.isfinite(vals)):
                 raise ValueError(f"{path} line {i}: needs {len(CSV_COLUMNS)} finite numbers")
             data.append(vals)
