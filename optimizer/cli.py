@@ -1,4 +1,5 @@
-"""Command line: ``check``, ``score``, ``search``, ``compare``, ``swap``, ``fit``, ``report``.
+"""Command line: ``check``, ``score``, ``search``, ``compare``, ``swap``, ``fit``, ``report``,
+``sensitivity``, ``upgrade``.
 
 Parsing and printing only."""
 
@@ -180,6 +181,24 @@ def _parser() -> argparse.ArgumentParser:
         help="problem file (default: the one named in the run's run.json)",
     )
     _refresh_option(rp)
+    sv = sub.add_parser(
+        "sensitivity",
+        help="how a run's best plan reacts to a step of each plant parameter (tornado)",
+    )
+    sv.add_argument("run", type=Path, metavar="RUN", help="results folder of a search")
+    sv.add_argument("--problem", type=Path, metavar="FILE", help="problem (default: the run's)")
+    sv.add_argument("--json", type=Path, metavar="FILE", help="also write the table as JSON")
+    up = sub.add_parser(
+        "upgrade",
+        help="which joint's drive is worth making faster: each upgraded in turn, best plan "
+        "re-scored on the robust objective",
+    )
+    up.add_argument("problem", type=Path, help="problem file (TOML)")
+    up.add_argument("--from", dest="from_dir", type=Path, required=True, metavar="RUN",
+                    help="results folder of a search: its ranked plans are the candidates")
+    up.add_argument("--factor", type=float, default=2.0,
+                    help="how much faster the upgraded drive is (default 2: twice the bandwidth)")
+    up.add_argument("--json", type=Path, metavar="FILE", help="also write the table as JSON")
     f = sub.add_parser(
         "fit",
         help="fit an actuator model (lag + delay) to a bench log: frequency response or "
@@ -339,6 +358,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _fit(args)
         if args.command == "report":
             return _report(args)
+        if args.command == "sensitivity":
+            return _sensitivity(args)
+        if args.command == "upgrade":
+            return _upgrade(args)
     except InputError as err:
         if args.debug:
             raise
@@ -997,6 +1020,80 @@ def _swap(args: argparse.Namespace) -> int:
     )
     names_written += _report_if(args, out, result, out_dir, prob)
     return _finish(out, result, out_dir, names_written, "swap search")
+
+
+def _sensitivity(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.markup import escape
+
+    from .advice import sensitivities
+    from .report import SAFETY_SHORT, sensitivity_table, write_atomic
+    from .runreport import read_run, rebuild, roles, run_problem
+
+    run = read_run(args.run)
+    prob, notes = run_problem(run, args.problem)
+    out = _console_for(prob)
+    for n in notes:
+        out.print(f"[yellow]warning:[/] {escape(n)}")
+    best, _, _ = roles(run.ranking)
+    if best is None:
+        raise InputError(run.path / "ranking.json", "", "holds no ranked plan")
+    label, text, make = rebuild(best, run, prob)
+    with out.status("stepping each plant parameter…") as status:
+        base, rows = sensitivities(
+            prob, make, label,
+            on_step=lambda i, n: status.update(f"stepping each plant parameter… {i}/{n}"),
+        )
+    out.print(sensitivity_table(base, rows, label))
+    doc = {"label": label, "plan_text": text, "error_index": base.error_index,
+           "rows": [r.to_dict() for r in rows]}
+    body = json.dumps(doc, indent=2) + "\n"
+    write_atomic(run.path / "sensitivity.json", body)
+    if args.json:
+        write_atomic(args.json, body)
+    out.print(f"wrote {run.path / 'sensitivity.json'} (for 'tierplan report {run.path}')")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    return EXIT_OK
+
+
+def _upgrade(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.markup import escape
+
+    from .advice import upgrade_advice
+    from .report import SAFETY_SHORT, upgrade_table, write_atomic
+    from .runs import previous_plans
+
+    if not args.factor > 1.0:
+        print(f"tierplan: error: --factor must be > 1, got {args.factor}", file=sys.stderr)
+        return EXIT_INPUT
+    prob = _load(args.problem)
+    out = _console_for(prob)
+    plans = [s.plan for s in previous_plans(args.from_dir, prob, 10)]
+    if not plans:
+        raise InputError(args.from_dir, "", "holds no ranked plan (plans/rank-NN.toml)")
+    with out.status("upgrading each drive in turn…") as status:
+        rows = upgrade_advice(
+            prob, plans, args.factor,
+            on_joint=lambda j: status.update(f"upgrading each drive in turn… {j}"),
+        )
+    out.print(upgrade_table(rows, args.factor))
+    for r in rows[:3]:
+        out.print(f"  {escape(r.joint)}: {escape(r.best_plan)}")
+    out.print(
+        f"candidates: the {len(plans)} ranked plans of {escape(str(args.from_dir))} and the "
+        "gain ladder's plans of each upgraded problem, on the nominal plant and the "
+        "problem's perturbed plants (robust error)"
+    )
+    body = json.dumps([r.to_dict() for r in rows], indent=2) + "\n"
+    write_atomic(args.from_dir / "upgrade.json", body)
+    if args.json:
+        write_atomic(args.json, body)
+    out.print(f"wrote {args.from_dir / 'upgrade.json'} (for 'tierplan report {args.from_dir}')")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    return EXIT_OK
 
 
 def _fit(args: argparse.Namespace) -> int:

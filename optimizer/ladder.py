@@ -27,6 +27,7 @@ Pure library code: no printing, no optuna.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -160,6 +161,31 @@ def suggested_plan(problem: Problem, rungs: list[Rung] | None = None) -> Plan | 
 
 #: kp_r / kp_t ratios tried for the informed single-tier OSC.
 OSC_RATIOS = (1.0, 2.0, 4.0, 8.0, 16.0)
+
+
+def ladder_variants(problem: Problem, rungs: list[Rung] | None = None) -> list[Plan]:
+    """The suggested plan and a few neighbours the plan search also evaluates first: every
+    tier at 85 % and at 55 % of its rung's limit, and the middle tiers on position only
+    (leaving orientation to the fastest tier). They start the search in the region the
+    ladder found stable, at no more than a handful of trials."""
+    rungs = gain_ladder(problem) if rungs is None else rungs
+    base = suggested_plan(problem, rungs)
+    if base is None:
+        return []
+    out = [base]
+    for share in (0.85, 0.55):
+        tiers = tuple(
+            dataclasses.replace(t, kp_t=t.kp_t * share / FRACTION, kp_r=t.kp_r * share / FRACTION)
+            for t in base.tiers
+        )
+        out.append(dataclasses.replace(base, tiers=tiers, label=f"ladder: at {share:.0%}"))
+    if len(base.tiers) >= 3:
+        tiers = tuple(
+            dataclasses.replace(t, kp_r=0.0) if 0 < i < len(base.tiers) - 1 else t
+            for i, t in enumerate(base.tiers)
+        )
+        out.append(dataclasses.replace(base, tiers=tiers, label="ladder: middle on position"))
+    return out
 
 
 def informed_osc(problem: Problem) -> tuple[float, float, float] | None:

@@ -94,7 +94,7 @@ class SearchSpace:
 
     max_tiers: int = 4
     """Most tiers a plan may have [-]."""
-    subset_mode: str = "nested"
+    subset_mode: str = "ranked"
     """``nested`` (joint by joint, each tier inside the previous) or ``ranked`` (each tier
     keeps the joints of the previous one whose drives are at least as fast as a cut)."""
     kp_t_range: tuple[float, float] = (100.0, 20000.0)
@@ -786,7 +786,7 @@ def _read_search(t: TableReader, names: Sequence[str]) -> SearchSpace:
     t.seen.update({"tier1_kp_t_range", "tier1_kp_r_range"})
     space = SearchSpace(
         max_tiers=t.int("max_tiers", 4, min_value=1, max_value=8),
-        subset_mode=t.str("subset_mode", "nested", choices=("nested", "ranked")),
+        subset_mode=t.str("subset_mode", "ranked", choices=("ranked", "nested")),
         kp_t_range=_range(t, "kp_t_range", (100.0, 20000.0), True),
         kp_r_range=_range(t, "kp_r_range", (100.0, 40000.0), True),
         zeta_range=_range(t, "zeta_range", (0.5, 1.2), True),

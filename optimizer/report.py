@@ -434,3 +434,34 @@ def robustness_table(results: Sequence[RobustScore], n: int) -> Table:
         ]
         t.add_row(*row)
     return t
+
+
+def sensitivity_table(base: Score, rows: Sequence, label: str) -> Table:
+    """One row per stepped plant parameter (``advice.Sensitivity``), largest change first."""
+    t = Table(
+        title=f"sensitivity of '{escape(label)}' (nominal error index {fmt(base.error_index)})"
+    )
+    for c in ("parameter", "step", "error idx", "change", *MARGIN_COLS, "feasible"):
+        t.add_column(c, justify="left" if c in ("parameter", "step") else "right")
+    for r in rows:
+        t.add_row(
+            escape(r.parameter), escape(r.step), fmt(r.error_index), percent(r.error_change),
+            *margin_cells(r), "yes" if r.feasible else "[red]no[/]",
+        )
+    return t
+
+
+def upgrade_table(rows: Sequence, factor: float) -> Table:
+    """One row per joint (``advice.Upgrade``), best improvement first."""
+    t = Table(title=f"each drive {factor:g}× faster in turn: best robust error of the candidates")
+    for c in ("joint", "BW Hz now", "BW Hz upgraded", "error now", "error upgraded",
+              "improvement", "tiers now → upgraded"):
+        t.add_column(c, justify="left" if c == "joint" else "right")
+    for r in rows:
+        t.add_row(
+            escape(r.joint), fmt(r.bandwidth_hz), fmt(r.upgraded_bandwidth_hz),
+            fmt(r.error_now), fmt(r.error_upgraded),
+            "–" if not math.isfinite(r.improvement) else f"{r.improvement:.0%}",
+            f"{r.tiers_now} → {r.tiers_upgraded}",
+        )
+    return t

@@ -458,7 +458,11 @@ def result_sentences(
         f"{lim.bandwidth:g}×); its peak command is {fmt(best.get('peak_torque_ratio'))} of "
         "the effort limit."
     )
-    lad = next((e for e in ranking if e.get("source") == "ladder"), None)
+    lad = next(
+        (e for e in ranking
+         if e.get("source") == "ladder" and e.get("label") == "ladder: suggested plan"),
+        None,
+    )
     if lad is not None and lad is not best and lad.get("robust_error"):
         gain = (best["robust_error"] / lad["robust_error"] - 1.0) * 100.0
         out.append(

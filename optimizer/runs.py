@@ -145,9 +145,7 @@ def run_studies(
     is called about once a second while a study runs, and once when it ends.
     """
     if settings.informed:
-        suggested = ladder.suggested_plan(problem)
-        if suggested is not None:
-            seeded = [Seeded(suggested, "ladder"), *seeded]
+        seeded = [*(Seeded(p, "ladder") for p in ladder.ladder_variants(problem)), *seeded]
     enqueue, direct = [], []
     for s in seeded:
         params = srch.plan_params(s.plan, problem)

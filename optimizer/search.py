@@ -828,7 +828,8 @@ def rank(
     """
     keep = plan_entries[:top] + [
         e for e in plan_entries[top:]
-        if e["source"] in ("hand", "previous", "ladder") or e.get("pareto")
+        if e["source"] in ("hand", "previous") or e.get("pareto")
+        or e.get("label") == "ladder: suggested plan"
     ]
     allr = sorted(keep + baselines, key=ranking_value)
     return [{"rank": i + 1, **e} for i, e in enumerate(allr)]
