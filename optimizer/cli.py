@@ -198,6 +198,8 @@ def _parser() -> argparse.ArgumentParser:
                     help="results folder of a search: its ranked plans are the candidates")
     up.add_argument("--factor", type=float, default=2.0,
                     help="how much faster the upgraded drive is (default 2: twice the bandwidth)")
+    up.add_argument("--top", type=int, default=5,
+                    help="ranked plans of the run used as candidates (default 5)")
     up.add_argument("--json", type=Path, metavar="FILE", help="also write the table as JSON")
     f = sub.add_parser(
         "fit",
@@ -1071,7 +1073,10 @@ def _upgrade(args: argparse.Namespace) -> int:
         return EXIT_INPUT
     prob = _load(args.problem)
     out = _console_for(prob)
-    plans = [s.plan for s in previous_plans(args.from_dir, prob, 10)]
+    if args.top < 1:
+        print(f"tierplan: error: --top must be >= 1, got {args.top}", file=sys.stderr)
+        return EXIT_INPUT
+    plans = [s.plan for s in previous_plans(args.from_dir, prob, args.top)]
     if not plans:
         raise InputError(args.from_dir, "", "holds no ranked plan (plans/rank-NN.toml)")
     with out.status("upgrading each drive in turn…") as status:

@@ -362,3 +362,49 @@ def robustness_figure(results: Sequence[Mapping[str, Any]]) -> Figure:
                    label="nominal plant" if i == 0 else None)
     a.set_yticks(np.arange(len(results))[::-1], labels, fontsize=8)
     return _finish(fig, a, "error index [-]", "entry", "error on perturbed plants", axis="x")
+
+
+def tornado_figure(doc: Mapping[str, Any], top: int = 14) -> Figure:
+    """Change of the best plan's error index for each stepped plant parameter
+    (``sensitivity.json``), largest first; a plant where the plan failed is marked."""
+    rows = list(doc.get("rows") or [])[:top]
+    fig, ax = _new(1, 1, 8.0, 0.32 * len(rows) + 1.8)
+    a = ax[0, 0]
+    y = np.arange(len(rows))[::-1]
+    vals = [100.0 * float(r["error_change"]) if r.get("error_change") is not None else 0.0
+            for r in rows]
+    colors = [BEST if r.get("feasible") else OSC for r in rows]
+    a.barh(y, vals, color=colors)
+    a.set_yticks(y, [f"{r['parameter']} ({r['step']})" for r in rows], fontsize=8)
+    a.axvline(0.0, color=DATA, lw=1)
+    for yi, r in zip(y, rows):
+        if not r.get("feasible"):
+            a.annotate("fails", (0.0, yi), xytext=(4, -3), textcoords="offset points",
+                       fontsize=7, color=OSC)
+    a.set_xlabel("change of the error index [%]")
+    a.grid(True, axis="x", alpha=0.3)
+    a.set_title(f"sensitivity of {doc.get('label')}")
+    fig.tight_layout()
+    return fig
+
+
+def upgrade_figure(rows: Sequence[Mapping[str, Any]]) -> Figure:
+    """Improvement of the best robust error with each joint's drive upgraded."""
+    fig, ax = _new(1, 1, 8.0, 0.35 * len(rows) + 1.8)
+    a = ax[0, 0]
+    y = np.arange(len(rows))[::-1]
+    vals = [100.0 * float(r["improvement"]) if r.get("improvement") is not None else 0.0
+            for r in rows]
+    a.barh(y, vals, color=BEST)
+    a.set_yticks(
+        y,
+        [f"{r['joint']} ({r['bandwidth_hz']:.3g} → {r['upgraded_bandwidth_hz']:.3g} Hz)"
+         for r in rows],
+        fontsize=8,
+    )
+    a.axvline(0.0, color=DATA, lw=1)
+    a.set_xlabel("lower best robust error with this drive upgraded [%]")
+    a.grid(True, axis="x", alpha=0.3)
+    a.set_title("which drive to upgrade")
+    fig.tight_layout()
+    return fig

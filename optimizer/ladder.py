@@ -181,10 +181,11 @@ def ladder_variants(problem: Problem, rungs: list[Rung] | None = None) -> list[P
         out.append(dataclasses.replace(base, tiers=tiers, label=f"ladder: at {share:.0%}"))
     if len(base.tiers) >= 3:
         tiers = tuple(
-            dataclasses.replace(t, kp_r=0.0) if 0 < i < len(base.tiers) - 1 else t
+            dataclasses.replace(t, kp_r=0.0) if 0 < i < len(base.tiers) - 1 and t.kp_t > 0 else t
             for i, t in enumerate(base.tiers)
         )
-        out.append(dataclasses.replace(base, tiers=tiers, label="ladder: middle on position"))
+        if tiers != base.tiers:
+            out.append(dataclasses.replace(base, tiers=tiers, label="ladder: middle on position"))
     return out
 
 

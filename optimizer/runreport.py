@@ -60,6 +60,10 @@ class RunFolder:
     """Entries of robustness.json (``compare --from``), or None."""
     robustness_seed: int | None = None
     """Seed of the perturbed plants of robustness.json, or None."""
+    sensitivity: dict[str, Any] | None = None
+    """sensitivity.json (``tierplan sensitivity``), or None."""
+    upgrade: list[dict[str, Any]] | None = None
+    """upgrade.json (``tierplan upgrade``), or None."""
 
 
 def read_json(path: Path, missing: str = "not found: give a search's results folder") -> Any:
@@ -102,7 +106,13 @@ def read_run(path: Path) -> RunFolder:
         not isinstance(rob, list) or not all(isinstance(r, dict) for r in rob)
     ):
         raise InputError(path / "robustness.json", "entries", "must be a list of entries")
-    return RunFolder(path, record, ranking, trials, rob, seed)
+    sens = read_json(path / "sensitivity.json") if (path / "sensitivity.json").is_file() else None
+    upg = read_json(path / "upgrade.json") if (path / "upgrade.json").is_file() else None
+    if sens is not None and not isinstance(sens, dict):
+        raise InputError(path / "sensitivity.json", "", "must hold a JSON object")
+    if upg is not None and not isinstance(upg, list):
+        raise InputError(path / "upgrade.json", "", "must hold a list")
+    return RunFolder(path, record, ranking, trials, rob, seed, sens, upg)
 
 
 def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Problem, list[str]]:
@@ -317,6 +327,20 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
             "Error index of each entry on every perturbed plant of the check after the "
             "search; crosses at the right are plants on which it diverged or went unstable.",
         )
+    if run.sensitivity:
+        put(
+            fg.tornado_figure(run.sensitivity),
+            "fig-sensitivity.png",
+            "Change of the best plan's error index for a one-sided step of each plant "
+            "parameter (heavier payload; per joint one more period of delay, more friction, "
+            "a slower drive); red: the plan fails there.",
+        )
+    if run.upgrade:
+        put(
+            fg.upgrade_figure(run.upgrade),
+            "fig-upgrade.png",
+            "How much lower the best robust error gets with each joint's drive made faster.",
+        )
     write_atomic(run.path / "report.md", report_text(run, problem, figs, notes))
     return ["report.md"] + [f for f, _ in figs]
 
@@ -530,6 +554,37 @@ def report_text(
             "`tierplan report` adds them here."
         )
     out.append("")
+    if run.sensitivity or run.upgrade:
+        out += ["## Sensitivity and upgrades", ""]
+    if run.sensitivity:
+        rows = run.sensitivity.get("rows") or []
+        out.append("The best plan on plants stepped one parameter at a time (largest first):")
+        out.append("")
+        out.append("| parameter | step | error index | change | feasible |")
+        out.append("|---|---|---|---|---|")
+        for r in rows[:12]:
+            ch = r.get("error_change")
+            out.append(
+                f"| {r.get('parameter')} | {r.get('step')} | {fmt(r.get('error_index'))} | "
+                + ("–" if ch is None else f"{ch * 100:+.0f} %")
+                + f" | {'yes' if r.get('feasible') else 'no'} |"
+            )
+        out.append("")
+    if run.upgrade:
+        out.append("Each drive made faster in turn (best robust error of the run's plans and "
+                   "the ladder's plans):")
+        out.append("")
+        out.append("| joint | bandwidth now → upgraded [Hz] | error now | upgraded | improvement |")
+        out.append("|---|---|---|---|---|")
+        for r in run.upgrade:
+            imp = r.get("improvement")
+            out.append(
+                f"| {r.get('joint')} | {fmt(r.get('bandwidth_hz'))} → "
+                f"{fmt(r.get('upgraded_bandwidth_hz'))} | {fmt(r.get('error_now'))} | "
+                f"{fmt(r.get('error_upgraded'))} | "
+                + ("–" if imp is None else f"{imp * 100:.0f} %") + " |"
+            )
+        out.append("")
     swap = rec.get("swap")
     if swap:
         out += ["## After the actuator swap", "", swap_markdown(swap), ""]

@@ -73,6 +73,7 @@ task_axes = ["x"]
 tier_damping = 0.0
 [simulation]
 margin_samples = 1
+settle_s = 0.0
 [actuators.rail]
 model = "first_order"
 corner_hz = {corner_hz}

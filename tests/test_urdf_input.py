@@ -125,8 +125,10 @@ def _edit(tmp_path, old: str, new: str):
         ('<parent link="base_link"/>', '<parent link="hand"/>', "closed loop"),
         ("</joint>", '<mimic joint="shoulder"/></joint>', "mimic"),
     ],
-    ids=["mass-text", "mass-negative", "mass-nan", "inertia-negative", "triangle",
-         "axis-zero", "axis-two-numbers", "second-parent", "loop", "mimic"],  # fmt: skip
+    ids=[
+        "mass-text", "mass-negative", "mass-nan", "inertia-negative", "triangle",
+        "axis-zero", "axis-two-numbers", "second-parent", "loop", "mimic",
+    ],
 )
 def test_meaningless_urdf_content_is_one_line(tmp_path, capsys, old, new, why):
     """Each gives one line naming the URDF and what is wrong, exit 2, before pinocchio runs
