@@ -38,6 +38,10 @@ class TrajectoryScore:
     """Ticks simulated."""
     error_index: float
     """Weighted normalised RMS error of this trajectory [-]."""
+    bounded_ticks: int = 0
+    """Ticks where the bounded law's QP was solved (a limit would have bound) [-]."""
+    qp_failures: int = 0
+    """Ticks where that QP failed and the clipped sum was used instead [-]."""
 
 
 @dataclass(frozen=True)
@@ -87,6 +91,12 @@ class Score:
     """Ticks simulated over the set."""
     trajectories: tuple[TrajectoryScore, ...]
     """Per-trajectory figures."""
+    law: str = "summed"
+    """The plan's control law (``summed`` or ``bounded``; ``summed`` for joint space)."""
+    bounded_ticks: int = 0
+    """Ticks over the set where the bounded law's QP was solved [-]."""
+    qp_failures: int = 0
+    """Ticks over the set where it failed and the clipped sum was used [-]."""
 
     def to_dict(self) -> dict[str, object]:
         """JSON-ready dict; non-finite numbers become None."""
@@ -100,6 +110,8 @@ class Score:
                 "reason": t.reason,
                 "steps": t.steps,
                 "error_index": t.error_index,
+                "bounded_ticks": t.bounded_ticks,
+                "qp_failures": t.qp_failures,
             }
             for t in self.trajectories
         ]
@@ -132,8 +144,10 @@ def finite(x: object) -> object:
 
 
 def plan_controller(problem: Problem, plan: Plan, kind: str = "plan") -> TieredController:
-    """The tiered controller of ``plan`` on ``problem``."""
-    return TieredController(problem.arm, plan, problem.control, kind=kind)
+    """The tiered controller of ``plan`` on ``problem`` (with the drives' rate limits, which
+    the bounded law keeps to)."""
+    rates = np.array([a.rate_limit_nm_s for a in problem.actuators])
+    return TieredController(problem.arm, plan, problem.control, kind=kind, rate_limits=rates)
 
 
 def osc_plan(
@@ -219,7 +233,11 @@ def evaluate(
                 diverged = True
                 why = f"linearised loop unstable at t={ref.t[k]:.3f} s (spectral radius ≥ 1)"
         err = math.inf if diverged else trajectory_error(problem, m)
-        per.append(TrajectoryScore(ref.name, m, margins, diverged, why, ro.steps, err))
+        qp_ticks = int(getattr(controller, "bounded_ticks", 0))
+        qp_fail = int(getattr(controller, "qp_failures", 0))
+        per.append(
+            TrajectoryScore(ref.name, m, margins, diverged, why, ro.steps, err, qp_ticks, qp_fail)
+        )
         if on_trajectory is not None:
             on_trajectory(i, _aggregate([t.error_index for t in per], s.aggregate), err)
         unstable = compute_margin and not diverged and s.margins.shortfall(margins) is not None
@@ -274,6 +292,9 @@ def _score(
         bandwidth_margin=worst_m.bandwidth,
         slowest_mode_s=worst_m.slowest_mode_s,
         delay_cap_ms=delay_cap_s * 1e3,
+        law=str(getattr(getattr(controller, "plan", None), "law", "summed")),
+        bounded_ticks=sum(t.bounded_ticks for t in per),
+        qp_failures=sum(t.qp_failures for t in per),
         error_index=_aggregate([t.error_index for t in per], s.aggregate),
         steps=sum(t.steps for t in per),
         trajectories=tuple(per),

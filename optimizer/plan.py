@@ -69,6 +69,10 @@ class Tier:
         return 2.0 * self.zeta * math.sqrt(self.kp_r)
 
 
+#: Control laws a plan may use.
+LAWS = ("summed", "bounded")
+
+
 @dataclass(frozen=True)
 class Plan:
     """A tier plan: tier 1 first. Single-tier OSC is one tier over every joint."""
@@ -81,10 +85,15 @@ class Plan:
     """When true, each tier's joints must lie inside the previous tier's."""
     joint_names: tuple[str, ...] = field(default=(), compare=False)
     """URDF joint names, for printing (may be empty)."""
+    law: str = "summed"
+    """``summed``: the tiers' torques are summed, then clipped; ``bounded``: a small QP keeps
+    the sum within the effort and rate limits, earlier tiers first (``control/bounded.py``)."""
 
     def __post_init__(self) -> None:
         if not self.tiers:
             raise ValueError("a plan needs at least one tier")
+        if self.law not in LAWS:
+            raise ValueError(f"law '{self.law}' is not one of {', '.join(LAWS)}")
         for k, tier in enumerate(self.tiers[1:], start=2):
             if tier.kp_t == 0.0 and tier.kp_r == 0.0:
                 raise ValueError(f"tier {k} has kp_t = kp_r = 0 and would do nothing")
@@ -123,11 +132,13 @@ class Plan:
                 gains.append(f"r{tier.kp_r:.4g}")
             gains.append(f"z{tier.zeta:.3g}")
             parts.append(f"[{self.joints_text(tier, n)}] {' '.join(gains)}")
-        return " | ".join(parts)
+        return " | ".join(parts) + (" (bounded)" if self.law == "bounded" else "")
 
     def to_toml(self) -> str:
         """Plan file text that ``load_plan`` reads back to an equal plan."""
         lines = [f"label = {_quote(self.label)}", f"nested = {'true' if self.nested else 'false'}"]
+        if self.law != "summed":
+            lines.append(f"law = {_quote(self.law)}")
         for tier in self.tiers:
             lines += ["", "[[tier]]"]
             if self.joint_names and tier.joints == tuple(range(len(self.joint_names))):
@@ -175,6 +186,7 @@ def parse_plan(data: dict[str, Any], joint_names: Sequence[str], path: object) -
     if len(label) > 200:
         raise r.fail("label", f"is {len(label)} characters long; at most 200")
     nested = r.bool("nested", False)
+    law = r.str("law", "summed", choices=LAWS)
     tier_tables = r.table_list("tier")
     r.done()
     if not tier_tables:
@@ -211,7 +223,9 @@ def parse_plan(data: dict[str, Any], joint_names: Sequence[str], path: object) -
         except ValueError as err:
             raise PlanError(path, f"tier[{k}]", str(err)) from err
     try:
-        return Plan(tuple(tiers), label=label, nested=nested, joint_names=tuple(joint_names))
+        return Plan(
+            tuple(tiers), label=label, nested=nested, joint_names=tuple(joint_names), law=law
+        )
     except ValueError as err:
         raise PlanError(path, "tier", str(err)) from err
 

@@ -165,6 +165,7 @@ class LinearLoop:
         state: LoopState,
         split_gains: bool = True,
         coulomb_slope: bool = False,
+        limits_active: bool = False,
     ) -> None:
         """Linearise ``loop`` at tick ``k`` and ``state``.
 
@@ -175,6 +176,12 @@ class LinearLoop:
         oscillation that outgrows v_ε no longer sees it (the describing function of
         Coulomb friction falls with amplitude), so a margin must not count on it. With
         True the matrix is the exact derivative of the simulator's step.
+
+        ``limits_active=False`` (the default for margins) linearises as if no effort or
+        rate limit bound at the instant: a saturated joint is an open loop, which a
+        small-signal margin cannot describe; saturation is judged by the simulation
+        (pinned commands, peak torque). With True (and ``coulomb_slope``) the matrix is
+        the exact derivative of the step.
         """
         self.coulomb_slope = coulomb_slope
         self._v_hold = state.v.copy()
@@ -223,6 +230,9 @@ class LinearLoop:
         du = u - state.u_prev
         rate = np.abs(du) > loop.rate_step
         sat = np.abs(tau0) > eff
+        if not limits_active:
+            rate = np.zeros(n, dtype=bool)
+            sat = np.zeros(n, dtype=bool)
         self.Su = np.where(rate | sat, 0.0, 1.0)
         self.Sp = np.where(rate, 1.0, 0.0)
         step = np.where(rate, loop.rate_step, 0.0)

@@ -120,9 +120,15 @@ def test_three_workers_on_one_postgres_study(pg_url, tmp_path):
         assert len(workers) == WORKERS, workers  # every process ran its share
     ranking = json.loads((final / "ranking.json").read_text())
     best = sorted(
-        (t.values[0], t.number) for t in studies[""].get_trials() if srch.feasible(t)
+        (t.values[0], t.number)
+        for t in studies[""].get_trials()
+        if srch.feasible(t) and t.user_attrs.get("source", "search") == "search"
     )
-    ranked_plans = [(e["error_index"], e["trial"]) for e in ranking if e["kind"] == "plan"]
+    ranked_plans = [  # trials of the search (seeded plans may be scored outside the study)
+        (e["error_index"], e["trial"])
+        for e in ranking
+        if e["kind"] == "plan" and e.get("trial") is not None and e["source"] == "search"
+    ]
     assert ranked_plans == best[: len(ranked_plans)] and ranked_plans
     osc = min((t.values[0], t.number) for t in studies[".osc"].get_trials() if srch.feasible(t))
     assert next((e["error_index"], e["trial"]) for e in ranking if e["kind"] == "osc") == osc
@@ -133,7 +139,11 @@ def test_three_workers_on_one_postgres_study(pg_url, tmp_path):
 
     assert main(["report", str(tmp_path / "host0"), "--storage", pg_url]) == 0
     host0 = json.loads((tmp_path / "host0" / "ranking.json").read_text())
-    assert [(e["error_index"], e["trial"]) for e in host0 if e["kind"] == "plan"] == ranked_plans
+    assert [
+        (e["error_index"], e["trial"])
+        for e in host0
+        if e["kind"] == "plan" and e.get("trial") is not None and e["source"] == "search"
+    ] == ranked_plans
     assert (tmp_path / "host0" / "report.md").is_file()
     for i in range(1, WORKERS):  # each other host's own snapshot names real trials with their values
         values = {t.number: t.values[0] for t in studies[""].get_trials() if t.values}
@@ -151,9 +161,11 @@ def test_a_dead_hosts_trial_is_failed_by_the_heartbeat_and_retried(pg_url, monke
     name = f"hb-{uuid.uuid4().hex[:8]}"
     study = srch.open_study(pg_url, name, seed=1, prune=True)
     stale = study.ask()  # a trial left by a worker on a host that then died
-    stale.suggest_float("kp_t", *planar.search.kp_t_range, log=True)
-    stale.suggest_float("kp_r", *planar.search.kp_r_range, log=True)
+    from optimizer import ladder
+
     stale.suggest_float("zeta", *planar.search.zeta_range)
+    stale.suggest_float("ratio", *ladder.RATIO_RANGE, log=True)
+    stale.suggest_float("fraction", *ladder.FRACTION_RANGE)
     study._storage.set_trial_user_attr(stale._trial_id, "worker", "elsewhere.invalid:4242")
     study._storage.record_heartbeat(stale._trial_id)
     time.sleep(3.5)  # longer than the grace period

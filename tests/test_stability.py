@@ -45,7 +45,7 @@ def test_assembled_matrix_equals_the_whole_step_differentiated(demo, plan_file) 
     loop = make_loop(demo, plan_controller(demo, plan))
     ro = loop.rollout(demo.references[2])
     for k, st in ro.snapshots[:2]:
-        A = LinearLoop(loop, k, st, coulomb_slope=True).matrix()
+        A = LinearLoop(loop, k, st, coulomb_slope=True, limits_active=True).matrix()
         A_fd = jacobian_fd(lambda x, k=k, st=st: loop.step_map(k, x, st), loop.pack(st))
         assert A.shape == A_fd.shape
         np.testing.assert_allclose(A, A_fd, rtol=0, atol=1e-7 * np.abs(A_fd).max())

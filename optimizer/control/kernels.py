@@ -254,8 +254,9 @@ def tiered_command(
 
     ``H`` is the tip placement (4×4), ``refs[k]`` the packed reference row
     [p_d (3), R_d (9, row-major), ẋ_d (6), ẍ_d (6)]. ``ip``/``fp`` pack the plan
-    (layout in ``TieredController._pack``). Writes into ``out``: the clipped command
-    (n), the tip pose error e (6), each tier's torque (K·n). Tier 0 carries ẍ_d − J̇v.
+    (layout in ``TieredController.pack``). Writes into ``out``: the clipped command
+    (n), the tip pose error e (6), each tier's torque (K·n), the command before clipping
+    (n). Tier 0 carries ẍ_d − J̇v.
     """
     n = ip[0]
     m = ip[1]
@@ -363,11 +364,13 @@ def tiered_command(
     if not cholesky(Li):
         return SINGULAR
     cho_solve_vec(Li, z)
+    raw = out[n + 6 + K * n : n + 6 + K * n + n]
     for i in range(n):
         tn = u[i]
         for r in range(m):
             tn -= J[r, i] * z[r]
         t_ = tau[i] + tn + h[i]
+        raw[i] = t_
         lim = effort[i]
         if t_ > lim:
             t_ = lim

@@ -72,7 +72,17 @@ class TieredController:
     error [m; rad], 6) and ``tier_tau`` (each tier's share, K×n) hold the results.
     """
 
-    def __init__(self, arm: Arm, plan: Plan, settings: ControlSettings, kind: str = "plan") -> None:
+    def __init__(
+        self,
+        arm: Arm,
+        plan: Plan,
+        settings: ControlSettings,
+        kind: str = "plan",
+        rate_limits: np.ndarray | None = None,
+        qp_solver: str = "daqp",
+    ) -> None:
+        """``rate_limits``: each joint's torque-rate limit [N·m/s] (the bounded law keeps the
+        command within it); ``qp_solver``: a name of ``bounded.QP_SOLVERS``."""
         self.arm = arm
         self.plan = plan
         self.settings = settings
@@ -92,10 +102,23 @@ class TieredController:
         self.ref: Reference | None = None
         self._refs = np.zeros((1, 24))
         m = len(settings.task_axes)
-        self._out = np.zeros(n + 6 + self.n_tiers * n)
+        K = self.n_tiers
+        self._out = np.zeros(n + 6 + K * n + n)
         self.tau = self._out[:n]
         self.e6 = self._out[n : n + 6]
-        self.tier_tau = self._out[n + 6 :].reshape(self.n_tiers, n)
+        self.tier_tau = self._out[n + 6 : n + 6 + K * n].reshape(K, n)
+        self.raw = self._out[n + 6 + K * n :]
+        """After ``command``: the summed command before any clipping (n,) [N·m]."""
+        self.law = plan.law
+        self.qp_solver = qp_solver
+        step = np.full(n, np.inf) if rate_limits is None else np.asarray(rate_limits) * settings.dt
+        self._rate_step = step
+        self._prev: np.ndarray | None = None
+        self._clip = True
+        self.bounded_ticks = 0
+        """Ticks of the last rollout where the bounded law's QP was solved."""
+        self.qp_failures = 0
+        """Ticks of the last rollout where it failed and the clipped sum was used."""
         self._ws = np.zeros(9 + 3 + 2 * m * n + 5 * m + n + m * m + 3 * n * n + 3 * n + 64)
         self.pack()
 
@@ -118,12 +141,16 @@ class TieredController:
         ]
         kp_at: list[int] = []
         kd_at: list[int] = []
+        self._blocks: list[tuple[np.ndarray, np.ndarray, float]] = []
         for k, tier in enumerate(self.plan.tiers):
             kp = [tier.kp_t if ax < 3 else tier.kp_r for ax in axes]
             kd = [tier.kd_t if ax < 3 else tier.kd_r for ax in axes]
             rows = [i for i in range(m) if k == 0 or kp[i] > 0.0]
             ints += [len(tier.joints), *tier.joints, len(rows), *rows]
             lam = self.settings.tier_damping if tier.damping is None else tier.damping
+            self._blocks.append(
+                (np.array(tier.joints), np.array([axes[i] for i in rows]), float(lam))
+            )
             kp_at += range(len(floats) + 1, len(floats) + 1 + m)
             kd_at += range(len(floats) + 1 + m, len(floats) + 1 + 2 * m)
             floats += [lam, *kp, *kd]
@@ -149,9 +176,13 @@ class TieredController:
         fp[self._kd_at] *= damping
         if not clip:
             fp[self._effort_at] = np.inf
+        self._clip = clip  # the bounded law's QP too is a bound: off while linearising
 
     def bind(self, ref: Reference) -> None:
         self.ref = ref
+        self._prev = None
+        self.bounded_ticks = 0
+        self.qp_failures = 0
         N = len(ref.t)
         self._refs = np.ascontiguousarray(
             np.hstack([ref.p, ref.R.reshape(N, 9), ref.twist, ref.acc]), dtype=float
@@ -169,11 +200,43 @@ class TieredController:
         if self._one_joint:  # pinocchio hands a 6×1 Jacobian back as a vector
             J6 = J6.reshape(6, 1)
             Minv = np.atleast_2d(Minv)
-        return int(
+        status = int(
             kernels.tiered_command(
                 H, J6, dJv, h, Minv, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
             )
         )
+        if self.law == "bounded" and self._clip and status == 0:
+            self._bound(J6, Minv)
+        if self._clip and self.law == "bounded":
+            self._prev = self.tau.copy()
+        return status
+
+    def _bound(self, J6: np.ndarray, Minv: np.ndarray) -> None:
+        """Replace the clipped sum by the bounded law's command where a bound binds."""
+        from .bounded import TierBlock, build_qp, solve_qp, tier_hessian
+
+        eff = self.effort
+        lo, hi = -eff, eff.copy()
+        if self._prev is not None:
+            lo = np.maximum(lo, self._prev - self._rate_step)
+            hi = np.minimum(hi, self._prev + self._rate_step)
+        raw = self.raw
+        if np.all(raw >= lo) and np.all(raw <= hi):
+            return  # no bound binds: the summed law exactly (tau already equals raw)
+        self.bounded_ticks += 1
+        summed = self.tier_tau.sum(axis=0)
+        p = raw - summed  # posture and h
+        blocks = [
+            TierBlock(joints, tier_hessian(Minv, J6[rows], joints, lam), self.tier_tau[k, joints])
+            for k, (joints, rows, lam) in enumerate(self._blocks)
+        ]
+        qp = build_qp(blocks, len(raw), lo - p, hi - p)
+        x, ok = solve_qp(qp, self.qp_solver)
+        if ok:
+            self.tau[:] = np.clip(p + qp.A @ x, lo, hi)
+        else:
+            self.qp_failures += 1
+            self.tau[:] = np.clip(raw, lo, hi)
 
 
 def _per_joint(values: tuple[float, ...], n: int) -> np.ndarray:
