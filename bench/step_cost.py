@@ -2,11 +2,16 @@
 
 Prints µs per step of the full loop, µs per step of only the pinocchio calls a step needs
 (controller kinematics, M⁻¹, h, Jacobian, drift; plant ABA), and their ratio, all measured
-in this one run. Last line: ``us_per_step=<x> pinocchio_us=<y> ratio=<x/y>``.
+in this one run; then the bounded law against the summed law: on the demo (where no bound
+binds: the cost of the check) and on ``problems/polish7-fast`` (where the QP is solved on
+a third of the ticks), with the QP solver it uses. Last lines:
+``us_per_step=<x> pinocchio_us=<y> ratio=<x/y>`` and
+``bounded_over_summed_demo=<a> bounded_over_summed_fast=<b> qp_share_fast=<c> solver=<s>``.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -14,6 +19,7 @@ import numpy as np
 import pinocchio as pin
 
 from optimizer.arm import LWA
+from optimizer.control import bounded
 from optimizer.evaluate import make_loop, plan_controller
 from optimizer.plan import load_plan
 from optimizer.problem import load_problem
@@ -59,6 +65,31 @@ def main() -> None:
     print(f"closed-loop step (rollout of {ro.steps} ticks, best of 3): {us:.1f} us")
     print(f"pinocchio calls of one step (best of 3 x {n_calls}):      {pus:.1f} us")
     print(f"us_per_step={us:.1f} pinocchio_us={pus:.1f} ratio={us / pus:.2f}")
+
+    ratios, share = [], 0.0
+    for folder, plan_file in (("polish7", "three-tier.toml"),
+                              ("polish7-fast", "three-tier-summed.toml")):
+        pr = load_problem(ROOT / "problems" / folder / "problem.toml", check_reach=False)
+        pl = load_plan(ROOT / "problems" / folder / "plans" / plan_file, pr.arm.joint_names)
+        per = {}
+        for law in ("summed", "bounded"):
+            lp = make_loop(pr, plan_controller(pr, dataclasses.replace(pl, law=law)))
+            lp.rollout(pr.references[0])
+            best = np.inf
+            for _ in range(3):
+                t0 = time.perf_counter()
+                r = lp.rollout(pr.references[0])
+                best = min(best, (time.perf_counter() - t0) / r.steps)
+            per[law] = best * 1e6
+            if law == "bounded" and folder == "polish7-fast":
+                share = lp.controller.bounded_ticks / r.steps
+        ratios.append(per["bounded"] / per["summed"])
+        print(f"{folder}: summed {per['summed']:.1f} us/step, bounded {per['bounded']:.1f} "
+              f"us/step ({ratios[-1]:.2f}x)")
+    print(f"bounded law: QP on {share:.0%} of the ticks of polish7-fast, solver "
+          f"{bounded.DEFAULT_SOLVER} (bench/qp_solvers.py compares the registered ones)")
+    print(f"bounded_over_summed_demo={ratios[0]:.2f} bounded_over_summed_fast={ratios[1]:.2f} "
+          f"qp_share_fast={share:.2f} solver={bounded.DEFAULT_SOLVER}")
 
 
 if __name__ == "__main__":

@@ -113,6 +113,8 @@ class SearchSpace:
     """Joints that may not make up a tier on their own."""
     joint_kp_range: tuple[float, float] = (100.0, 20000.0)
     """Log-uniform range of the joint-space baseline's per-joint kp [1/s²]."""
+    laws: tuple[str, ...] = ("summed",)
+    """Control laws the plan search may choose (``summed``, ``bounded``)."""
     trials: int = 60
     """Default trial budget of ``search`` [-]."""
     seed: int = 0
@@ -778,6 +780,17 @@ def _range(
     return (lo, hi)
 
 
+def _laws(t: TableReader) -> tuple[str, ...]:
+    from .plan import LAWS
+
+    laws = t.strings("laws", ("summed",))
+    bad = [x for x in laws if x not in LAWS]
+    if bad or not laws or len(set(laws)) != len(laws):
+        raise t.fail("laws", f"must list each of {', '.join(LAWS)} at most once, at least one"
+                     + (f"; '{bad[0]}' is not one" if bad else ""))
+    return tuple(laws)
+
+
 def _read_search(t: TableReader, names: Sequence[str]) -> SearchSpace:
     never = t.strings("never_alone", ())
     for j in never:
@@ -799,6 +812,7 @@ def _read_search(t: TableReader, names: Sequence[str]) -> SearchSpace:
         tier_parts=t.bool("tier_parts", True),
         never_alone=tuple(never),
         joint_kp_range=_range(t, "joint_kp_range", (100.0, 20000.0), True),
+        laws=_laws(t),
         trials=t.int("trials", 60, min_value=1, max_value=1_000_000),
         seed=t.int("seed", 0, min_value=0),
     )

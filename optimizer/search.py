@@ -162,8 +162,10 @@ def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
         zeta = trial.suggest_float(f"t{k}_zeta", *sp.zeta_range)
         tiers.append(Tier(tuple(joints), kp_t, kp_r, zeta))
         prev = joints
+    law = trial.suggest_categorical("law", list(sp.laws)) if len(sp.laws) > 1 else sp.laws[0]
     return Plan(
-        tuple(tiers), label=f"trial {getattr(trial, 'number', '-')}", nested=True, joint_names=names
+        tuple(tiers), label=f"trial {getattr(trial, 'number', '-')}", nested=True,
+        joint_names=names, law=str(law),
     )
 
 
@@ -183,6 +185,10 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
         params["tiers"] = len(plan.tiers)
     if not all(_inside(t.zeta, sp.zeta_range) and t.damping is None for t in plan.tiers):
         return None
+    if plan.law not in sp.laws:
+        return None
+    if len(sp.laws) > 1:
+        params["law"] = plan.law
     prev = list(range(n))
     for k, tier in enumerate(plan.tiers[1:], start=2):
         if not set(tier.joints) < set(prev):

@@ -16,9 +16,10 @@ The bounded law solves, every tick where the summed command would pass a bound,
 where p is the posture torque plus h, τ_lo = max(−τ_max, τ_prev − r T_s) and
 τ_hi = min(τ_max, τ_prev + r T_s) (r: the torque-rate limit, where the problem sets one).
 When no bound binds the minimiser is u_k = u_k* for every tier: the summed law exactly
-(the QP is then not even solved). Priority: c_k = PRIORITY^−(k−1), so moving an earlier
-tier's torque away from its own optimum costs PRIORITY times more than moving the next
-one's, and a binding limit is met by the later tiers first (more joints, lower gains
+(the QP is then not even solved). Priority: c_k = PRIORITY^−(k−1) / h̄_k, h̄_k the mean
+diagonal of H_k (so every tier's cost has the same scale before its priority), so moving
+an earlier tier's torque away from its own optimum costs PRIORITY times more than moving
+the next one's, and a binding limit is met by the later tiers first (more joints, lower gains
 keep their task); within a tier, directions its task does not see (B_k's null space)
 cost only λ_k and are used first. A tick where the solver fails falls back to the
 clipped summed command and is counted.
@@ -88,7 +89,7 @@ def build_qp(
     x_star = np.zeros(N)
     i = 0
     for k, (b, s) in enumerate(zip(blocks, sizes)):
-        c = priority ** (-k)
+        c = priority ** (-k) / max(float(np.trace(b.H)) / s, 1e-300)
         P[i : i + s, i : i + s] = c * b.H
         A[b.joints, np.arange(i, i + s)] = 1.0
         x_star[i : i + s] = b.u_star
@@ -97,16 +98,17 @@ def build_qp(
     return BoundedQP(P, -P @ x_star, A, lo.copy(), hi.copy(), x_star)
 
 
-def _daqp(qp: BoundedQP) -> tuple[np.ndarray, bool]:
+def _daqp(qp: BoundedQP, warm: np.ndarray | None = None) -> tuple[np.ndarray, bool]:
     import daqp
 
+    kw = {"primal_start": warm} if warm is not None and len(warm) == len(qp.q) else {}
     x, _, flag, _ = daqp.solve(
-        qp.P, qp.q, qp.A, qp.hi, qp.lo, np.zeros(len(qp.lo), dtype=np.int32)
+        qp.P, qp.q, qp.A, qp.hi, qp.lo, np.zeros(len(qp.lo), dtype=np.int32), **kw
     )
     return np.asarray(x), flag in (1, 2)
 
 
-def _proxsuite(qp: BoundedQP) -> tuple[np.ndarray, bool]:
+def _proxsuite(qp: BoundedQP, warm: np.ndarray | None = None) -> tuple[np.ndarray, bool]:
     import proxsuite
 
     n = len(qp.q)
@@ -118,7 +120,7 @@ def _proxsuite(qp: BoundedQP) -> tuple[np.ndarray, bool]:
     return (np.array(res.x) if len(res.x) == n else np.zeros(n)), ok
 
 
-def _quadprog(qp: BoundedQP) -> tuple[np.ndarray, bool]:
+def _quadprog(qp: BoundedQP, warm: np.ndarray | None = None) -> tuple[np.ndarray, bool]:
     import quadprog
 
     C = np.vstack([qp.A, -qp.A]).T
@@ -131,7 +133,9 @@ def _quadprog(qp: BoundedQP) -> tuple[np.ndarray, bool]:
 
 
 #: Dense QP solvers by name: (solve function, package to install).
-QP_SOLVERS: dict[str, tuple[Callable[[BoundedQP], tuple[np.ndarray, bool]], str]] = {
+QP_SOLVERS: dict[
+    str, tuple[Callable[[BoundedQP, np.ndarray | None], tuple[np.ndarray, bool]], str]
+] = {
     "daqp": (_daqp, "daqp"),
     "proxsuite": (_proxsuite, "proxsuite"),
     "quadprog": (_quadprog, "quadprog"),
@@ -140,13 +144,16 @@ QP_SOLVERS: dict[str, tuple[Callable[[BoundedQP], tuple[np.ndarray, bool]], str]
 DEFAULT_SOLVER = "daqp"
 
 
-def solve_qp(qp: BoundedQP, solver: str = DEFAULT_SOLVER) -> tuple[np.ndarray, bool]:
-    """Solve ``qp`` with a registered solver; (x, ok). An unknown name lists the known."""
+def solve_qp(
+    qp: BoundedQP, solver: str = DEFAULT_SOLVER, warm: np.ndarray | None = None
+) -> tuple[np.ndarray, bool]:
+    """Solve ``qp`` with a registered solver, warm-started from ``warm`` (the previous
+    tick's solution) where the solver can; (x, ok). An unknown name lists the known."""
     if solver not in QP_SOLVERS:
         raise ValueError(f"unknown QP solver '{solver}'; known: {', '.join(QP_SOLVERS)}")
     fn, _ = QP_SOLVERS[solver]
     try:
-        x, ok = fn(qp)
+        x, ok = fn(qp, warm)
     except Exception:  # a solver's own error is a failed tick, counted by the caller
         return np.zeros(len(qp.q)), False
     ok = ok and bool(np.all(np.isfinite(x)))

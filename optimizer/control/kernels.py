@@ -554,3 +554,99 @@ def drive_packed(
         xn[i] = acc
     for i in range(nx):
         xa[i] = xn[i]
+
+
+@njit(cache=True)
+def bounded_qp(
+    Minv: np.ndarray,
+    J6: np.ndarray,
+    ip: np.ndarray,
+    lams: np.ndarray,
+    tier_tau: np.ndarray,
+    priority: float,
+    P: np.ndarray,
+    A: np.ndarray,
+    xstar: np.ndarray,
+    ws: np.ndarray,
+) -> int:
+    """The bounded law's QP (see ``bounded.py``): P = blockdiag(c_k H_k), A = [S_kᵀ],
+    x* = (u_k*). ``ip`` = [K, per tier: nj, joints(nj), nr, rows(nr) of J6]; ``ws``
+    scratch of at least 3·36 + 12·n floats. Returns N, the number of variables, or −1 when a
+    tier's task inertia is singular."""
+    K = ip[0]
+    n = Minv.shape[0]
+    o = 1
+    col0 = 0
+    for i in range(P.shape[0]):
+        for j in range(P.shape[1]):
+            P[i, j] = 0.0
+    for i in range(A.shape[0]):
+        for j in range(A.shape[1]):
+            A[i, j] = 0.0
+    c = 1.0
+    for k in range(K):
+        nj = ip[o]
+        joints = ip[o + 1 : o + 1 + nj]
+        nr = ip[o + 1 + nj]
+        rows = ip[o + 2 + nj : o + 2 + nj + nr]
+        o += 2 + nj + nr
+        lam = lams[k]
+        # B = J_r Minv S^T  (nr x nj) in ws
+        B = ws[: nr * nj].reshape((nr, nj))
+        for r in range(nr):
+            for a in range(nj):
+                acc = 0.0
+                for q in range(n):
+                    acc += J6[rows[r], q] * Minv[q, joints[a]]
+                B[r, a] = acc
+        X = ws[nr * nj : 2 * nr * nj].reshape((nr, nj))  # Q B
+        if nj < nr:
+            L = ws[2 * nr * nj : 2 * nr * nj + nr * nr].reshape((nr, nr))
+            for r in range(nr):
+                for s in range(r + 1):
+                    acc = 0.0
+                    for q in range(n):
+                        jq = J6[rows[r], q]
+                        if jq != 0.0:
+                            for p in range(n):
+                                acc += jq * Minv[q, p] * J6[rows[s], p]
+                    L[r, s] = acc
+                    L[s, r] = acc
+                L[r, r] += 1e-12 * (1.0 + L[r, r])
+            if not cholesky(L):
+                return -1
+            colv = ws[2 * nr * nj + nr * nr : 2 * nr * nj + nr * nr + nr]
+            for a in range(nj):
+                for r in range(nr):
+                    colv[r] = B[r, a]
+                cho_solve_vec(L, colv)
+                for r in range(nr):
+                    X[r, a] = colv[r]
+        else:
+            for r in range(nr):
+                for a in range(nj):
+                    X[r, a] = B[r, a]
+        tr = 0.0
+        for a in range(nj):
+            for b in range(nj):
+                acc = 0.0
+                for r in range(nr):
+                    acc += B[r, a] * X[r, b]
+                acc += lam * Minv[joints[a], joints[b]]
+                P[col0 + a, col0 + b] = acc
+                if a == b:
+                    tr += acc
+            A[joints[a], col0 + a] = 1.0
+            xstar[col0 + a] = tier_tau[k, joints[a]]
+        ck = c / max(tr / nj, 1e-300)
+        for a in range(nj):
+            for b in range(nj):
+                P[col0 + a, col0 + b] *= ck
+        for a in range(nj):  # symmetrise against round-off
+            for b in range(a):
+                m_ = 0.5 * (P[col0 + a, col0 + b] + P[col0 + b, col0 + a])
+                P[col0 + a, col0 + b] = m_
+                P[col0 + b, col0 + a] = m_
+        col0 += nj
+        c /= priority
+    return col0

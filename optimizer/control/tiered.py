@@ -113,7 +113,9 @@ class TieredController:
         self.qp_solver = qp_solver
         step = np.full(n, np.inf) if rate_limits is None else np.asarray(rate_limits) * settings.dt
         self._rate_step = step
+        self._has_rate = bool(np.isfinite(step).any())
         self._prev: np.ndarray | None = None
+        self._x_prev: np.ndarray | None = None
         self._clip = True
         self.bounded_ticks = 0
         """Ticks of the last rollout where the bounded law's QP was solved."""
@@ -156,6 +158,16 @@ class TieredController:
             floats += [lam, *kp, *kd]
         self._ip = np.array(ints, dtype=np.int64)
         self._fp = np.array(floats, dtype=float)
+        qp_ints: list[int] = [len(self._blocks)]
+        for joints_k, rows6, _ in self._blocks:
+            qp_ints += [len(joints_k), *joints_k, len(rows6), *rows6]
+        self._qp_ip = np.array(qp_ints, dtype=np.int64)
+        self._qp_lam = np.array([lam for _, _, lam in self._blocks], dtype=float)
+        N = sum(len(j) for j, _, _ in self._blocks)
+        self._qp_P = np.zeros((N, N))
+        self._qp_A = np.zeros((n, N))
+        self._qp_x = np.zeros(N)
+        self._qp_ws = np.zeros(3 * 36 + 12 * n + 2 * 6 * n + 64)
         self._fp_base = self._fp.copy()
         self._kp_at = np.array(kp_at, dtype=np.int64)
         self._kd_at = np.array(kd_at, dtype=np.int64)
@@ -181,6 +193,7 @@ class TieredController:
     def bind(self, ref: Reference) -> None:
         self.ref = ref
         self._prev = None
+        self._x_prev = None
         self.bounded_ticks = 0
         self.qp_failures = 0
         N = len(ref.t)
@@ -213,26 +226,33 @@ class TieredController:
 
     def _bound(self, J6: np.ndarray, Minv: np.ndarray) -> None:
         """Replace the clipped sum by the bounded law's command where a bound binds."""
-        from .bounded import TierBlock, build_qp, solve_qp, tier_hessian
+        from .bounded import PRIORITY, BoundedQP, solve_qp
 
         eff = self.effort
-        lo, hi = -eff, eff.copy()
-        if self._prev is not None:
-            lo = np.maximum(lo, self._prev - self._rate_step)
-            hi = np.minimum(hi, self._prev + self._rate_step)
         raw = self.raw
-        if np.all(raw >= lo) and np.all(raw <= hi):
-            return  # no bound binds: the summed law exactly (tau already equals raw)
+        if self._prev is None or not self._has_rate:
+            if (np.abs(raw) <= eff).all():
+                return  # no bound binds: the summed law exactly (tau already equals raw)
+            lo, hi = -eff, eff
+        else:
+            lo = np.maximum(-eff, self._prev - self._rate_step)
+            hi = np.minimum(eff, self._prev + self._rate_step)
+            if (raw >= lo).all() and (raw <= hi).all():
+                return
         self.bounded_ticks += 1
-        summed = self.tier_tau.sum(axis=0)
-        p = raw - summed  # posture and h
-        blocks = [
-            TierBlock(joints, tier_hessian(Minv, J6[rows], joints, lam), self.tier_tau[k, joints])
-            for k, (joints, rows, lam) in enumerate(self._blocks)
-        ]
-        qp = build_qp(blocks, len(raw), lo - p, hi - p)
-        x, ok = solve_qp(qp, self.qp_solver)
+        p = raw - self.tier_tau.sum(axis=0)  # posture and h
+        P, A, xs = self._qp_P, self._qp_A, self._qp_x
+        ok_build = kernels.bounded_qp(
+            Minv, J6, self._qp_ip, self._qp_lam, self.tier_tau, PRIORITY, P, A, xs, self._qp_ws
+        )
+        if ok_build < 0:
+            self.qp_failures += 1
+            self.tau[:] = np.clip(raw, lo, hi)
+            return
+        qp = BoundedQP(P, -(P @ xs), A, lo - p, hi - p, xs)
+        x, ok = solve_qp(qp, self.qp_solver, self._x_prev)
         if ok:
+            self._x_prev = x
             self.tau[:] = np.clip(p + qp.A @ x, lo, hi)
         else:
             self.qp_failures += 1
