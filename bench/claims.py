@@ -6,7 +6,8 @@ Runs, on the bundled demo (``problems/polish7``), in a temporary folder:
 2. the single-tier OSC stability boundary (ζ 0.8): linearised at the home pose, and where
    error starts to grow in a 10 s simulation of holding that pose;
 3. the gain ladder and its suggested plan;
-4. the README's demo search (its exact command: budgets, 2 workers) and the check of its
+4. the bounded law against the summed one where the torque limits bind (polish7-fast);
+5. the README's demo search (its exact command: budgets, 2 workers) and the check of its
    ranked plans on 50 perturbed plants drawn with another seed (``compare --seed``);
 
 and prints each figure on a labelled line. Takes a few minutes on two cores.
@@ -30,7 +31,7 @@ from pathlib import Path
 import numpy as np
 
 from optimizer.cli import main as cli
-from optimizer.evaluate import make_loop, osc_plan, plan_controller
+from optimizer.evaluate import make_loop, osc_plan, plan_controller, score_plan
 from optimizer.ladder import gain_ladder, suggested_plan
 from optimizer.plan import load_plan
 from optimizer.problem import Problem, load_problem
@@ -126,6 +127,24 @@ def ladder(prob: Problem) -> None:
     print(f"suggested plan: {plan.compact(prob.arm.n) if plan else None} ({dt:.2f} s)")
 
 
+def bounded_law() -> None:
+    section("the bounded law where the torque limits bind (problems/polish7-fast)")
+    fast_dir = ROOT / "problems/polish7-fast"
+    prob = load_problem(fast_dir / "problem.toml")
+    hand = load_plan(fast_dir / "plans/three-tier-summed.toml", prob.arm.joint_names)
+    lad = suggested_plan(prob)
+    for name, plan in (("hand three tiers", hand), ("ladder plan", lad)):
+        if plan is None:
+            continue
+        for law in ("summed", "bounded"):
+            pl = dataclasses.replace(plan, law=law)
+            s = score_plan(prob, pl)
+            print(f"{name}, {law}: feasible={s.feasible} pos_rms_mm={s.pos_rms_mm:.3g} "
+                  f"pos_max_mm={s.pos_max_mm:.3g} rot_rms_deg={s.rot_rms_deg:.3g} "
+                  f"qp_ticks={s.bounded_ticks}/{s.steps} qp_failures={s.qp_failures} "
+                  f"reason={s.reason}")
+
+
 def demo_search() -> None:
     section("the README's demo search, then 50 perturbed plants with another seed")
     with tempfile.TemporaryDirectory() as tmp:
@@ -177,6 +196,7 @@ def main() -> None:
     hand_plans(prob)
     osc_boundary(prob)
     ladder(prob)
+    bounded_law()
     if "--skip-search" not in sys.argv:
         demo_search()
 

@@ -145,7 +145,13 @@ def run_studies(
     is called about once a second while a study runs, and once when it ends.
     """
     if settings.informed:
-        seeded = [*(Seeded(p, "ladder") for p in ladder.ladder_variants(problem)), *seeded]
+        plans = ladder.ladder_variants(problem)
+        for law in problem.search.laws:  # every law the search may choose gets the ladder
+            if law != "summed":
+                plans += [
+                    dataclasses.replace(p, law=law, label=f"{p.label}, {law}") for p in plans[:1]
+                ]
+        seeded = [*(Seeded(p, "ladder") for p in plans), *seeded]
     enqueue, direct = [], []
     for s in seeded:
         params = srch.plan_params(s.plan, problem)
