@@ -1,5 +1,5 @@
 """Command line: ``check``, ``score``, ``search``, ``compare``, ``swap``, ``fit``, ``report``,
-``sensitivity``, ``upgrade``.
+``sensitivity``, ``upgrade``, ``export``.
 
 Parsing and printing only."""
 
@@ -201,6 +201,13 @@ def _parser() -> argparse.ArgumentParser:
     up.add_argument("--top", type=int, default=5,
                     help="ranked plans of the run used as candidates (default 5)")
     up.add_argument("--json", type=Path, metavar="FILE", help="also write the table as JSON")
+    ex = sub.add_parser(
+        "export",
+        help="write a plan's law as a header-only C++ file (Eigen 3) with a check program",
+    )
+    ex.add_argument("problem", type=Path, help="problem file (TOML)")
+    ex.add_argument("--plan", type=Path, required=True, metavar="FILE", help="plan file (TOML)")
+    ex.add_argument("--out", type=Path, required=True, metavar="DIR", help="folder to write")
     f = sub.add_parser(
         "fit",
         help="fit an actuator model (lag + delay) to a bench log: frequency response or "
@@ -364,6 +371,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _sensitivity(args)
         if args.command == "upgrade":
             return _upgrade(args)
+        if args.command == "export":
+            return _export(args)
     except InputError as err:
         if args.debug:
             raise
@@ -1097,6 +1106,28 @@ def _upgrade(args: argparse.Namespace) -> int:
     if args.json:
         write_atomic(args.json, body)
     out.print(f"wrote {args.from_dir / 'upgrade.json'} (for 'tierplan report {args.from_dir}')")
+    out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
+    return EXIT_OK
+
+
+def _export(args: argparse.Namespace) -> int:
+    from rich.markup import escape
+
+    from .export import export_files
+    from .plan import load_plan
+    from .report import SAFETY_SHORT, write_atomic
+
+    prob = _load(args.problem)
+    plan = load_plan(args.plan, prob.arm.joint_names)
+    out = _console_for(prob)
+    files = export_files(prob, plan)
+    for name, text in files.items():
+        write_atomic(args.out / name, text)
+    out.print(
+        f"wrote {escape(str(args.out))}/ ({', '.join(files)}): build and check with\n"
+        f"  cd {escape(str(args.out))} && g++ -O2 -std=c++17 -I/usr/include/eigen3 check.cpp "
+        "-o check && ./check"
+    )
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     return EXIT_OK
 
