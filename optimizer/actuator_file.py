@@ -97,3 +97,53 @@ def _replace(path: Path, text: str, validate: Callable[[Path], object] | None) -
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def write_calibrated(
+    problem_path: Path,
+    target: Path,
+    plant: Mapping[str, object],
+    joints: Mapping[str, Mapping[str, object]],
+    note: str,
+    validate: Callable[[Path], object] | None = None,
+) -> None:
+    """Write a copy of the problem file at ``target`` with ``[plant]`` keys and each
+    joint's ``[actuators.<joint>]`` keys set (a joint's table gets the full model: ``model``
+    and its parameters); every other key, table and comment stays. The URDF path is made
+    relative to the target's folder. Replaced whole or not at all."""
+    problem_path, target = Path(problem_path), Path(target)
+    from .inputs import read_text
+
+    text = read_text(problem_path, "problem", InputError)
+    try:
+        doc = tomlkit.parse(text)
+    except tomlkit.exceptions.ParseError as err:
+        raise InputError(problem_path, "", f"TOML syntax error: {err}") from err
+    arm = doc.get("arm")
+    if isinstance(arm, Table | InlineTable) and isinstance(arm.get("urdf"), str):
+        urdf = (problem_path.parent / str(arm["urdf"])).resolve()
+        arm["urdf"] = os.path.relpath(urdf, target.parent.resolve())
+    tp = doc.get("plant")
+    if tp is None:
+        tp = tomlkit.table()
+        doc.add("plant", tp)
+    for k, v in plant.items():
+        tp[k] = v
+    if isinstance(tp, Table):
+        tp.add(tomlkit.comment(note))
+    acts = doc.get("actuators")
+    if acts is None:
+        acts = tomlkit.table(is_super_table=True)
+        doc.add("actuators", acts)
+    for joint, values in joints.items():
+        sect = acts.get(joint)
+        if sect is None:
+            sect = tomlkit.table()
+            acts.add(joint, sect)
+        if "model" in values:
+            for k in sorted(MODEL_KEYS - {"model"}):
+                if k in sect and k not in values:
+                    del sect[k]
+        for k, v in values.items():
+            sect[k] = v
+    _replace(target, tomlkit.dumps(doc), validate)

@@ -408,3 +408,30 @@ def upgrade_figure(rows: Sequence[Mapping[str, Any]]) -> Figure:
     a.set_title("which drive to upgrade")
     fig.tight_layout()
     return fig
+
+
+def validation_figure(
+    dt: float, measured: np.ndarray, predicted: np.ndarray, calibrated: np.ndarray
+) -> Figure:
+    """Tip position error over time and its spectrum: the measured run against the
+    prediction of the problem as given and of the calibrated plant."""
+    from scipy.signal import welch
+
+    fig, ax = _new(1, 2, 11.0, 3.6)
+    t = np.arange(len(measured)) * dt
+    for series, label, color in ((measured, "measured", DATA), (predicted, "predicted", OSC),
+                                 (calibrated, "calibrated", BEST)):
+        k = min(len(series), len(t))
+        ax[0, 0].plot(t[:k], series[:k], color=color, lw=1, label=label)
+        f, P = welch(series - np.mean(series), fs=1.0 / dt, nperseg=min(256, len(series)))
+        ax[0, 1].semilogy(f[1:], P[1:], color=color, lw=1, label=label)
+    ax[0, 0].set_xlabel("time after the settling window [s]")
+    ax[0, 0].set_ylabel("tip position error [mm]")
+    ax[0, 1].set_xlabel("frequency [Hz]")
+    ax[0, 1].set_ylabel("error spectrum [mm²/Hz]")
+    for a in ax[0]:
+        a.grid(True, alpha=0.3)
+        a.legend(fontsize=8)
+    fig.suptitle("measured against predicted tip error")
+    fig.tight_layout()
+    return fig

@@ -88,7 +88,9 @@ class Rollout:
     tier_tau: np.ndarray
     """Each tier's torque share before clipping (K, n_tiers, n) [N·m]."""
     q: np.ndarray
-    """Joint positions (K, n) [rad]."""
+    """Joint positions at the start of each tick (K, n) [rad]."""
+    v: np.ndarray
+    """Joint velocities at the start of each tick, as the plant had them (K, n) [rad/s]."""
     p: np.ndarray
     """Tip position (K, 3) [m]."""
     p_ref: np.ndarray
@@ -271,6 +273,7 @@ class ClosedLoop:
         TD = np.zeros((N, n))
         TT = np.zeros((N, K, n))
         Q = np.zeros((N, n))
+        V = np.zeros((N, n))
         snap_at = {int(N * (i + 1) / (s.margin_samples + 1)) for i in range(s.margin_samples)}
         snaps: list[tuple[int, LoopState]] = []
         st = self.initial_state()
@@ -283,6 +286,7 @@ class ClosedLoop:
             if k in snap_at:
                 snaps.append((k, st.copy()))
             Q[k] = st.q
+            V[k] = st.v
             np.add(st.v, noise[k], out=vm)
             status, worst = self.step(k, st, vm)
             code = kernels.record(
@@ -318,6 +322,7 @@ class ClosedLoop:
             tau_del=TD[:steps],
             tier_tau=TT[:steps],
             q=Q[:steps],
+            v=V[:steps],
             p=P,
             p_ref=ref.p[:steps].copy(),
             v_ref=ref.twist[:steps, :3].copy(),

@@ -184,8 +184,9 @@ def test_psd_of_a_sine_peaks_at_its_frequency():
 
     t = np.arange(0, 2.0, 1e-3)
     tau = np.sin(2 * np.pi * 37.0 * t)[:, None]
-    ro = Rollout("s", t, np.zeros((t.size, 6)), tau, tau, np.zeros((t.size, 1, 1)), tau, tau,
-                 tau, tau, False, None, t.size)  # fmt: skip
+    ro = Rollout(name="s", t=t, e=np.zeros((t.size, 6)), tau_cmd=tau, tau_del=tau,
+                 tier_tau=np.zeros((t.size, 1, 1)), q=tau, v=tau, p=tau, p_ref=tau, v_ref=tau,
+                 diverged=False, reason=None, steps=t.size)  # fmt: skip
     f, P = fg.torque_psd([ro], 1e-3)
     assert abs(f[np.argmax(P[:, 0])] - 37.0) <= f[1] - f[0]
 
