@@ -1308,8 +1308,9 @@ def _fit(args: argparse.Namespace) -> int:
     if args.write and not args.joint:
         print("tierplan: error: --write needs --joint NAME (the table to update)", file=sys.stderr)
         return EXIT_INPUT
-    if not args.phase_at > 0:
-        print(f"tierplan: error: --phase-at must be > 0 Hz, got {args.phase_at}", file=sys.stderr)
+    if not (args.phase_at > 0 and args.phase_at < float("inf")):
+        print(f"tierplan: error: --phase-at must be a finite frequency > 0 Hz, got "
+              f"{args.phase_at}", file=sys.stderr)
         return EXIT_INPUT
     log = read_log(args.log)
     if args.model == "auto":
@@ -1366,7 +1367,9 @@ def _fit(args: argparse.Namespace) -> int:
         "chosen_by": why,
     }
     if args.json is not None:
-        text = json.dumps(record, indent=2) + "\n"
+        from .evaluate import finite
+
+        text = json.dumps(finite(record), indent=2, allow_nan=False) + "\n"
         if to_stdout:
             sys.stdout.write(text)
         else:

@@ -133,7 +133,7 @@ def read_log(path: Path) -> Log:
             try:
                 v = float(cells[j])
             except ValueError as err:
-                raise LogError(path, where, f"is not a number: {cells[j].strip()!r}") from err
+                raise LogError(path, where, "is not a number") from err
             if not math.isfinite(v):
                 raise LogError(path, where, f"must be finite, got {cells[j].strip()}")
             data[r, c] = v
@@ -150,12 +150,30 @@ def read_log(path: Path) -> Log:
             f"follows {x[bad]:g}",
         )
     if cols is FREQUENCY_COLUMNS:
-        if x[0] <= 0.0:
-            raise LogError(path, cols[0], f"must be > 0, got {x[0]:g}")
+        if x[0] < MIN_FREQUENCY_HZ or x[-1] > MAX_FREQUENCY_HZ:
+            raise LogError(
+                path, cols[0], f"must lie within {MIN_FREQUENCY_HZ:g}–{MAX_FREQUENCY_HZ:g} Hz, "
+                f"got {x[0]:g}–{x[-1]:g}"
+            )
         ph = np.rad2deg(np.unwrap(np.deg2rad(data[:, 2])))
         ph -= 360.0 * np.round(ph[0] / 360.0)  # first point in (−180, 180]
+        if np.ptp(data[:, 1]) < 0.5 and np.ptp(ph) < 5.0:
+            raise LogError(
+                path, "", "the response is flat (magnitude within 0.5 dB, phase within 5°): "
+                "the sweep does not reach the drive's corner; sweep to higher frequencies"
+            )
         return FrequencyLog(str(path), _ro(x), _ro(data[:, 1]), _ro(ph))
     med = float(np.median(steps))
+    if not MIN_STEP_S <= med <= MAX_STEP_S:
+        raise LogError(
+            path, cols[0], f"the sampling step {med:g} s is outside {MIN_STEP_S:g}–{MAX_STEP_S:g} s"
+        )
+    for c, name in ((1, "commanded_nm"), (2, "measured_nm")):
+        col = data[:, c]
+        if np.ptp(col) <= 1e-9 * (1.0 + float(np.max(np.abs(col)))):
+            what = ("no step or chirp excites the drive" if c == 1
+                    else "the drive did not respond (or the column is another signal)")
+            raise LogError(path, name, f"does not vary: {what}")
     if np.max(np.abs(steps - med)) > 0.01 * med:
         raise LogError(
             path,
@@ -163,6 +181,13 @@ def read_log(path: Path) -> Log:
             f"sampling must be uniform: the step varies from {steps.min():g} to {steps.max():g} s",
         )
     return TimeLog(str(path), _ro(x), _ro(data[:, 1]), _ro(data[:, 2]))
+
+
+#: What a bench log may hold: frequencies [Hz] and time steps [s].
+MIN_FREQUENCY_HZ, MAX_FREQUENCY_HZ = 1e-3, 1e5
+MIN_STEP_S, MAX_STEP_S = 1e-6, 1.0
+#: A fit must explain at least this share of the measured signal's variation [-].
+MIN_EXPLAINED = 0.5
 
 
 def _ro(a: np.ndarray) -> np.ndarray:
@@ -400,7 +425,27 @@ def fit_model(log: Log, model: str) -> ActuatorFit:
             best = sol
     if best is None:  # pragma: no cover - starts is never empty
         raise RuntimeError("no start")
-    return _summarise(log, model, best)
+    fit = _summarise(log, model, best)
+    _refuse_noise(log, fit, best.fun)
+    return fit
+
+
+def _refuse_noise(log: Log, fit: ActuatorFit, r: np.ndarray) -> None:
+    """Refuse a fit that explains too little of the measured signal to mean anything."""
+    if isinstance(log, TimeLog):
+        meas = np.asarray(log.measured)
+        spread = float(np.var(meas))
+        explained = 1.0 - float(np.mean(r**2)) / spread if spread > 0 else 0.0
+    else:
+        half = len(r) // 2
+        spread = float(np.var(np.asarray(log.mag_db) / _DB_PER_NP))
+        explained = 1.0 - float(np.mean(r[:half] ** 2)) / spread if spread > 0 else 0.0
+    if explained < MIN_EXPLAINED:
+        raise LogError(
+            log.path, "", f"the {fit.model} fit explains {max(explained, 0.0):.0%} of the measured "
+            f"signal (needs {MIN_EXPLAINED:.0%}): the measurement is mostly noise or another "
+            "signal; excite the drive more"
+        )
 
 
 def _summarise(log: Log, model: str, sol: scipy.optimize.OptimizeResult) -> ActuatorFit:

@@ -635,6 +635,9 @@ class WorkerJob:
     actuator_files: tuple[str, ...] = ()
     x0: tuple[tuple[str, float], ...] = ()
     """Start of a CMA-ES sampler (parameter, value) pairs."""
+    total: int = 0
+    """With a positive value, stop once the study holds this many ended or running trials
+    (``--trials`` of several processes on one study do not overrun it)."""
 
 
 def study_options(
@@ -660,8 +663,30 @@ def run_worker(job: WorkerJob) -> int:
         objective(problem, job.kind, job.prune, job.objectives),
         n_trials=job.n_trials,
         catch=(Exception,),
+        callbacks=[Budget(job.total)] if job.total else [],
     )
     return job.n_trials
+
+
+class Budget:
+    """Stop a study's optimisation once it holds ``total`` trials that ended with a result
+    or are running: processes that each bring a study up to a total, started together,
+    share that total instead of each adding to it."""
+
+    def __init__(self, total: int) -> None:
+        self.total = total
+
+    def __call__(self, study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
+        running = len(study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)))
+        if finished(study) + running >= self.total:
+            study.stop()
+
+
+def fresh_seed(seed: int, study: optuna.Study, worker: int = 0) -> int:
+    """The sampler seed of a worker: the run's seed for a new study, another one for each
+    state a study is resumed from (so a resumed or added worker does not repeat the
+    proposals of the first), and apart per worker."""
+    return seed + 1000 * worker + 7919 * len(study.get_trials(deepcopy=False))
 
 
 def run_search(
@@ -697,8 +722,16 @@ def run_search(
         return study
     if problem.path is None:
         raise ValueError("a search needs a problem loaded from a file")
+    queued = len(study.get_trials(deepcopy=False, states=(TrialState.WAITING,)))
+    resumed = len(study.get_trials(deepcopy=False)) > queued
+    if resumed:  # a resumed study draws fresh proposals (the first ones are in it already)
+        study.sampler = make_sampler(fresh_seed(seed, study), opts["sampler"], opts["x0"])
     if workers <= 1:
-        cb = [(lambda s, t: on_progress(s))] if on_progress else []
+        cb: list[Callable[[optuna.Study, optuna.trial.FrozenTrial], None]] = (
+            [(lambda s, t: on_progress(s))] if on_progress else []
+        )
+        if not add:
+            cb.append(Budget(total_trials))
         study.optimize(
             objective(problem, kind, prune, objectives),
             n_trials=remaining,
@@ -714,11 +747,12 @@ def run_search(
             study_name,
             kind,
             s,
-            seed + 1000 * i,
+            fresh_seed(seed, study, i) if resumed else seed + 1000 * i,
             prune,
             objectives,
             tuple(str(a) for a in problem.actuator_files),
             tuple((opts["x0"] or {}).items()),
+            0 if add else total_trials,
         )
         for i, s in enumerate(shares)
         if s > 0

@@ -163,6 +163,30 @@ BAD_CSV = [
         "time_s,commanded_nm,measured_nm\n0,0,0\n0.001,1,0\n0.002,1,0.1\n0.004,1,0.2\n0.005,1,0.3\n",
         "sampling must be uniform",
     ),
+    ("tiny-frequency", GOOD_F.replace("1,-0.100", "5e-324,-0.100"), "must lie within"),
+    ("huge-frequency", GOOD_F.replace("32,-3.200", "1e307,-3.200"), "must lie within"),
+    (
+        "flat",
+        "frequency_hz,magnitude_db,phase_deg\n" + "".join(f"{f},0,0\n" for f in (1, 2, 4, 8, 16)),
+        "the response is flat",
+    ),
+    (
+        "tiny-step",
+        "time_s,commanded_nm,measured_nm\n"
+        + "".join(f"{i * 1e-310!r},1,{i}\n" for i in range(6)),
+        "sampling step",
+    ),
+    (
+        "constant-command",
+        "time_s,commanded_nm,measured_nm\n" + "".join(f"{i * 1e-3},1,{i}\n" for i in range(9)),
+        "commanded_nm: does not vary",
+    ),
+    (
+        "zero-response",
+        "time_s,commanded_nm,measured_nm\n"
+        + "".join(f"{i * 1e-3},{i % 2},0\n" for i in range(9)),
+        "measured_nm: does not vary",
+    ),
 ]
 
 
@@ -177,6 +201,28 @@ def test_bad_csv_one_line_error(tmp_path, capsys, name, text, message):
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and str(p) in err and message in err
     assert "Traceback" not in err
+
+
+def test_pure_noise_is_refused_not_fitted(tmp_path, capsys):
+    """A step command against a measured signal of pure noise: no fit is written, one line
+    says the measurement is mostly noise (it used to be "fitted" at some frequency)."""
+    rng = np.random.default_rng(0)
+    t = np.arange(400) * 1e-3
+    cmd = (t > 0.05).astype(float)
+    meas = rng.normal(0.0, 1.0, t.size)
+    p = _csv(tmp_path, "time_s,commanded_nm,measured_nm\n" + "".join(
+        f"{float(a)!r},{float(b)!r},{float(c)!r}\n" for a, b, c in zip(t, cmd, meas)))
+    out = tmp_path / "acts.toml"
+    assert main(["fit", str(p), "--joint", "elbow", "--no-plot", "--write", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "mostly noise" in err and not out.exists()
+
+
+def test_phase_at_infinity_is_refused(tmp_path, capsys):
+    """--phase-at inf is one line, exit 2 (it used to write Infinity into the JSON)."""
+    p = _csv(tmp_path, GOOD_F)
+    assert main(["fit", str(p), "--no-plot", "--phase-at", "inf"]) == 2
+    assert "finite frequency" in capsys.readouterr().err
 
 
 def test_cli_json_fields(tmp_path, capsys):

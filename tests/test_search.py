@@ -56,6 +56,31 @@ def test_resume_loses_and_repeats_nothing(planar, tmp_path) -> None:
     numbers = [t.number for t in again.trials]
     assert numbers == list(range(9))
     assert [(t.number, t.value, t.params) for t in again.trials[:5]] == before
+    # the resumed run draws fresh proposals: none repeats one of the first run
+    first = [t.params for t in again.trials[:5]]
+    assert all(t.params not in first for t in again.trials[5:])
+
+
+def test_two_processes_with_one_total_do_not_overrun_it(planar, tmp_path) -> None:
+    """Two processes each bringing one study up to 10 trials, started together, end with
+    10 or a trial or two more (those in flight when the total was reached), not 20."""
+    import subprocess
+    import sys
+
+    storage = str(tmp_path / "t.journal")
+    code = (
+        "import sys; sys.path.insert(0, 'tests');"
+        "from problems import PLANAR; from optimizer.problem import load_problem;"
+        "from optimizer import search as s;"
+        f"s.run_search(load_problem(PLANAR), {storage!r}, 'shared', 'osc', 10, seed=int(sys.argv[1]))"
+    )
+    s0 = srch.open_study(storage, "shared", 0, True)  # made once, before both start
+    del s0
+    procs = [subprocess.Popen([sys.executable, "-c", code, str(i)]) for i in range(2)]
+    assert [p.wait(timeout=300) for p in procs] == [0, 0]
+    study = srch.open_study(storage, "shared", 0, True)
+    n = srch.finished(study)
+    assert 10 <= n <= 12, n
 
 
 def test_two_workers_share_one_storage(planar, tmp_path) -> None:
