@@ -6,8 +6,9 @@ Runs, on the bundled demo (``problems/polish7``), in a temporary folder:
 2. the single-tier OSC stability boundary (ζ 0.8): linearised at the home pose, and where
    error starts to grow in a 10 s simulation of holding that pose;
 3. the gain ladder and its suggested plan;
-4. the bounded law against the summed one where the torque limits bind (polish7-fast);
-5. the README's demo search (its exact command: budgets, 2 workers) and the check of its
+4. the joint-space baseline's reference and per-joint tracking errors;
+5. the bounded law against the summed one where the torque limits bind (polish7-fast);
+6. the README's demo search (its exact command: budgets, 2 workers) and the check of its
    ranked plans on 50 perturbed plants drawn with another seed (``compare --seed``);
 
 and prints each figure on a labelled line. Takes a few minutes on two cores.
@@ -127,6 +128,34 @@ def ladder(prob: Problem) -> None:
     print(f"suggested plan: {plan.compact(prob.arm.n) if plan else None} ({dt:.2f} s)")
 
 
+def joint_space(prob: Problem) -> None:
+    section("the joint-space baseline examined (CLIK reference, per-joint tracking)")
+    from optimizer.control import clik_cached
+    from optimizer.evaluate import evaluate, joint_controller
+    from optimizer.ladder import informed_joint_gains
+
+    b = prob.baseline
+    for ref in prob.references:
+        sol = clik_cached(prob.arm, ref, prob.control.task_axes, b.clik_gain, b.clik_damping,
+                          b.posture_gain)
+        ep = np.linalg.norm(sol.error[:, :3], axis=1) * 1e3
+        er = np.degrees(np.linalg.norm(sol.error[:, 3:], axis=1))
+        print(f"CLIK reference on '{ref.name}': position error max {ep.max():.3g} mm, "
+              f"orientation max {er.max():.3g} deg (clik_gain {b.clik_gain:g} 1/s)")
+    kp, zeta = informed_joint_gains(prob)
+    ctrl = joint_controller(prob, kp, zeta)
+    keep: list = []
+    s = evaluate(prob, ctrl, "informed joint space", compute_margin=False, keep_rollouts=keep)
+    print(f"informed joint gains kp {np.round(kp, 0).tolist()} zeta {zeta:g}: task error "
+          f"{s.pos_rms_mm:.3g} mm / {s.rot_rms_deg:.3g} deg RMS")
+    for ro in keep:
+        sol = clik_cached(prob.arm, prob.references[[r.name for r in prob.references].index(
+            ro.name)], prob.control.task_axes, b.clik_gain, b.clik_damping, b.posture_gain)
+        dq = np.degrees(np.sqrt(np.mean((sol.q[: ro.steps] - ro.q) ** 2, axis=0)))
+        print(f"  '{ro.name}' joint tracking RMS [deg]: "
+              + ", ".join(f"{j} {x:.3g}" for j, x in zip(prob.arm.joint_names, dq)))
+
+
 def bounded_law() -> None:
     section("the bounded law where the torque limits bind (problems/polish7-fast)")
     fast_dir = ROOT / "problems/polish7-fast"
@@ -196,6 +225,7 @@ def main() -> None:
     hand_plans(prob)
     osc_boundary(prob)
     ladder(prob)
+    joint_space(prob)
     bounded_law()
     if "--skip-search" not in sys.argv:
         demo_search()
