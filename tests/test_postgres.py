@@ -140,11 +140,12 @@ def test_three_workers_on_one_postgres_study(pg_url, tmp_path):
 
     assert main(["report", str(tmp_path / "host0"), "--storage", pg_url]) == 0
     host0 = json.loads((tmp_path / "host0" / "ranking.json").read_text())
-    assert [
+    host0_plans = [
         (e["error_index"], e["trial"])
         for e in host0
         if e["kind"] == "plan" and e.get("trial") is not None and e["source"] == "search"
-    ] == ranked_plans
+    ]
+    assert host0_plans == best[: len(host0_plans)] and len(host0_plans) >= len(ranked_plans)
     assert (tmp_path / "host0" / "report.md").is_file()
     for i in range(1, WORKERS):  # each other host's own snapshot names real trials with their values
         values = {t.number: t.values[0] for t in studies[""].get_trials() if t.values}
