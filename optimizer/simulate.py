@@ -243,21 +243,21 @@ class ClosedLoop:
     # -- rollout ---------------------------------------------------------------
     def _explain(self, code: int, worst: int, t: float, st: LoopState) -> str:
         s, names = self.settings, self.arm.joint_names
-        if code == 1:
+        if code == kernels.STOP_SINGULAR:
             return f"singular solve in the controller at t={t:.3f} s"
-        if code == 2:
+        if code == kernels.STOP_NONFINITE:
             return f"state became non-finite at t={t:.3f} s"
-        if code == 3:
+        if code == kernels.STOP_ERROR_BOUND:
             e = self.controller.e6
             err = math.sqrt(float(e[:3] @ e[:3]))
             return (
                 f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
                 f"bound at t={t:.3f} s"
             )
-        if code == 4:
+        if code == kernels.STOP_PINNED:
             j = int(np.argmax(st.pinned))
             return f"torque of {names[j]} pinned at its limit for {s.pinned_s:g} s (t={t:.3f} s)"
-        j = code - 10
+        j = code - kernels.STOP_JOINT_LIMIT
         return f"{names[j]} left its position limits ({np.rad2deg(st.q[j]):.1f} deg) at t={t:.3f} s"
 
     def rollout(self, ref: Reference, seed: int | None = None) -> Rollout:

@@ -38,6 +38,12 @@ _writable_cache()
 
 OK = 0
 SINGULAR = 1
+#: Why ``record`` stops a rollout (0: it goes on); a joint limit is STOP_JOINT_LIMIT + j.
+STOP_SINGULAR = 1
+STOP_NONFINITE = 2
+STOP_ERROR_BOUND = 3
+STOP_PINNED = 4
+STOP_JOINT_LIMIT = 10
 
 
 @njit(cache=True)
@@ -424,44 +430,6 @@ def actuate(
 
 
 @njit(cache=True)
-def drive(
-    xa: np.ndarray,
-    u_d: np.ndarray,
-    Ad: np.ndarray,
-    Bd: np.ndarray,
-    Cm: np.ndarray,
-    Dm: np.ndarray,
-    v: np.ndarray,
-    coulomb: np.ndarray,
-    v_eps: np.ndarray,
-    viscous: np.ndarray,
-    tau_net: np.ndarray,
-    tau_del: np.ndarray,
-) -> None:
-    """Mean delivered torque over the step, minus joint friction; advances ``xa``."""
-    nx = xa.shape[0]
-    n = v.shape[0]
-    for j in range(n):
-        y = 0.0
-        for i in range(nx):
-            y += Cm[j, i] * xa[i]
-        for i in range(n):
-            y += Dm[j, i] * u_d[i]
-        tau_del[j] = y
-        tau_net[j] = y - coulomb[j] * math.tanh(v[j] / v_eps[j]) - viscous[j] * v[j]
-    xn = np.empty(nx)
-    for i in range(nx):
-        acc = 0.0
-        for c in range(nx):
-            acc += Ad[i, c] * xa[c]
-        for c in range(n):
-            acc += Bd[i, c] * u_d[c]
-        xn[i] = acc
-    for i in range(nx):
-        xa[i] = xn[i]
-
-
-@njit(cache=True)
 def integrate(q: np.ndarray, v: np.ndarray, a: np.ndarray, h: float) -> None:
     """Semi-implicit Euler: v ← v + h a, then q ← q + h v."""
     for j in range(q.shape[0]):
@@ -492,8 +460,9 @@ def record(
 ) -> int:
     """Log tick ``k`` and check for divergence.
 
-    Returns 0, or: 1 singular solve, 2 non-finite state, 3 tip error over the bound,
-    4 a command pinned at its limit too long, 10 + j joint j outside its limits.
+    Returns 0, or a STOP_* code: singular solve, non-finite state, tip error over the bound,
+    a command pinned at its limit too long, STOP_JOINT_LIMIT + j for joint j outside its
+    limits.
     """
     n = q.shape[0]
     for i in range(6):
@@ -504,21 +473,21 @@ def record(
         for t in range(tier_tau.shape[0]):
             TT[k, t, j] = tier_tau[t, j]
     if status != 0:
-        return 1
+        return STOP_SINGULAR
     finite = True
     for j in range(n):
         if not (math.isfinite(q[j]) and math.isfinite(v[j])):
             finite = False
     if not finite:
-        return 2
+        return STOP_NONFINITE
     if e6[0] * e6[0] + e6[1] * e6[1] + e6[2] * e6[2] > max_err2:
-        return 3
+        return STOP_ERROR_BOUND
     for j in range(n):
         if pinned[j] >= pinned_ticks:
-            return 4
+            return STOP_PINNED
     for j in range(n):
         if q[j] < lower[j] or q[j] > upper[j]:
-            return 10 + j
+            return STOP_JOINT_LIMIT + j
     return 0
 
 
