@@ -27,6 +27,14 @@ from .robust import RobustScore, evaluate_robust, plant_set
 from .stability import scaled_model
 
 
+def _json_ready(record: object) -> dict[str, object]:
+    """A dataclass record as a JSON-ready dict (non-finite numbers become None)."""
+    from .evaluate import finite
+
+    out: dict[str, object] = finite(dataclasses.asdict(record))  # type: ignore[call-overload, assignment]
+    return out
+
+
 @dataclass(frozen=True)
 class Sensitivity:
     """One step of one plant parameter and what it did to a plan."""
@@ -50,10 +58,7 @@ class Sensitivity:
 
     def to_dict(self) -> dict[str, object]:
         """JSON-ready dict (non-finite numbers become None)."""
-        from .evaluate import finite
-
-        out: dict[str, object] = finite(dataclasses.asdict(self))  # type: ignore[assignment]
-        return out
+        return _json_ready(self)
 
 
 def stepped_plants(problem: Problem) -> list[tuple[str, str, Problem]]:
@@ -132,10 +137,7 @@ class Upgrade:
 
     def to_dict(self) -> dict[str, object]:
         """JSON-ready dict (non-finite numbers become None)."""
-        from .evaluate import finite
-
-        out: dict[str, object] = finite(dataclasses.asdict(self))  # type: ignore[assignment]
-        return out
+        return _json_ready(self)
 
 
 def upgraded(problem: Problem, joint: str, factor: float) -> Problem:

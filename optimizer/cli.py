@@ -877,16 +877,14 @@ def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
                 f"[yellow]hand plan '{escape(s.plan.label)}' did not make the ranking: "
                 f"{escape(str(d.get('reason')))}[/]"
             )
-    for tuned, what in (
-        (result.osc, "tuned single-tier OSC"), (result.joint, "tuned joint-space")
-    ):
-        if tuned is not None and not tuned.get("converged"):
-            g = tuned.get("late_gain")
+    from .runs import convergence_note
+
+    for tuned, what in ((result.osc, "tuned single-tier OSC"), (result.joint, "tuned joint-space")):
+        note = convergence_note(tuned)
+        if note:
             out.print(
-                f"[yellow]{what} may not have converged[/]: "
-                + (f"the last quarter of its trials still lowered it by {g:.0%}"
-                   if g is not None else "too few feasible trials to tell")
-                + "; give it more trials (--baseline-trials) before trusting a margin over it"
+                f"[yellow]{what} may not have converged[/]: {note}; give it more trials "
+                "(--baseline-trials) before trusting a margin over it"
             )
     if not result.plan_entries:
         out.print("[red]no feasible plan was found[/]: widen the gain ranges or give more trials")

@@ -464,15 +464,13 @@ def result_sentences(
             f"{fmt(e.get('error_index'))})"
         )
     out = [sent + (": " + "; ".join(comp) if comp else "") + "."]
+    from .runs import convergence_note
+
     for e, who in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
-        if e is not None and e.get("converged") is False:
-            g = e.get("late_gain")
-            out.append(
-                f"The {who} may not have converged: "
-                + (f"the last quarter of its trials still lowered its error by {g:.0%}"
-                   if g is not None else "too few of its trials were feasible to tell")
-                + "; more baseline trials could narrow the gap."
-            )
+        note = convergence_note(e)
+        if note:
+            out.append(f"The {who} may not have converged: {note}; more baseline trials "
+                       "could narrow the gap.")
     st, de, bw = margin_cells(best)
     lim = problem.scoring.margins
     out.append(

@@ -290,6 +290,18 @@ def score_robust(problem: Problem, plan: Plan) -> dict[str, Any]:
 #: best value by no more than this fraction.
 CONVERGED_GAIN = 0.02
 
+def convergence_note(entry: dict[str, Any] | None) -> str | None:
+    """Why a tuned baseline may not have converged, in words, or None when it has."""
+    if entry is None or entry.get("converged") is not False:
+        return None
+    g = entry.get("late_gain")
+    return (
+        f"the last quarter of its trials still lowered its error by {g:.0%}"
+        if g is not None
+        else "too few of its trials were feasible to tell"
+    )
+
+
 #: Sources of plans evaluated first in the plan study (always kept in the ranking).
 SEEDED_SOURCES = ("hand", "previous", "ladder")
 
