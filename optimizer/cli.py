@@ -289,7 +289,7 @@ def _refresh_option(p: argparse.ArgumentParser) -> None:
 def _refresh(run_dir: Path, prob, storage: str, study: str | None) -> None:  # type: ignore[no-untyped-def]
     """Rewrite a run folder's ranking from the studies in ``storage`` (no trial is run)."""
     from . import search as srch
-    from .runreport import read_run
+    from .rundir import read_run
     from .runs import RunSettings, run_studies, write_run
 
     old = read_run(run_dir).record
@@ -568,7 +568,8 @@ def _plants_line(prob, n: int, seed: int | None = None) -> str:  # type: ignore[
 
 def _score_outputs(args, out, prob, results, kept) -> None:  # type: ignore[no-untyped-def]
     """The caution line, then --json and --figures of ``score``."""
-    from .report import SAFETY_SHORT, scores_json, write_atomic
+    from .outputs import write_atomic
+    from .report import SAFETY_SHORT, scores_json
 
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     if args.json:
@@ -606,7 +607,8 @@ def _score_from(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .report import reasons, robust_table, score_table
-    from .runreport import mismatches, read_run, rebuild, rescore, run_problem
+    from .rundir import read_run
+    from .runreport import mismatches, rebuild, rescore, run_problem
 
     run = read_run(args.from_dir)
     prob, notes = run_problem(run, args.problem)
@@ -655,7 +657,8 @@ def _score_from(args: argparse.Namespace) -> int:
 def _report(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
-    from .runreport import read_run, run_problem, write_report
+    from .rundir import REPORT, read_run
+    from .runreport import run_problem, write_report
 
     run = read_run(args.run)
     prob, notes = run_problem(run, args.problem)
@@ -667,7 +670,7 @@ def _report(args: argparse.Namespace) -> int:
         out.print(f"[yellow]warning:[/] {escape(n)}")
     with out.status("re-simulating the best plan and both baselines for the figures…"):
         names = write_report(run, prob, notes)
-    out.print(f"wrote {args.run / 'report.md'} ({', '.join(names[1:])})")
+    out.print(f"wrote {run.file(REPORT)} ({', '.join(names[1:])})")
     return EXIT_OK
 
 
@@ -678,6 +681,7 @@ def _compare(args: argparse.Namespace) -> int:
 
     from .compare import compare
     from .evaluate import joint_gains_text, osc_plan
+    from .outputs import write_atomic
     from .plan import load_plan
     from .report import (
         MARGIN_LEGEND,
@@ -685,7 +689,6 @@ def _compare(args: argparse.Namespace) -> int:
         console,
         reasons,
         robustness_table,
-        write_atomic,
     )
 
     prob = _load(args.problem)
@@ -703,7 +706,8 @@ def _compare(args: argparse.Namespace) -> int:
     cands: list = [(pl.label, pl.compact(n), functools.partial(_tiered_for, pl)) for pl in plans]
     run = None
     if args.from_dir is not None:
-        from .runreport import changed_since, read_run, rebuild, roles
+        from .rundir import read_run
+        from .runreport import changed_since, rebuild, roles
 
         if args.storage:
             _refresh(args.from_dir, prob, args.storage, args.study)
@@ -756,8 +760,10 @@ def _compare(args: argparse.Namespace) -> int:
         write_atomic(args.json, text)
         out.print(f"wrote {args.json}")
     if run is not None:
-        write_atomic(run.path / "robustness.json", text)
-        out.print(f"wrote {run.path / 'robustness.json'} (for 'tierplan report {run.path}')")
+        from .rundir import ROBUSTNESS, write_extra
+
+        f = write_extra(run.path, ROBUSTNESS, text)
+        out.print(f"wrote {f} (for 'tierplan report {run.path}')")
     if args.figures:
         from .figures import margin_figure, plan_colors, robustness_figure, save
 
@@ -807,7 +813,7 @@ def _budgets(args: argparse.Namespace, prob) -> tuple[int, int, int] | None:  # 
 
 
 def _objectives(text: str) -> tuple[str, ...] | None:
-    from .search import SECOND_OBJECTIVES
+    from .objectives import SECOND_OBJECTIVES
 
     parts = tuple(p.strip() for p in text.split(",") if p.strip())
     if parts == ("error",) or (
@@ -917,6 +923,7 @@ def _finish(out, result, out_dir: Path, names: list[str], what: str) -> int:  # 
 
 
 def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
+    from .rundir import default_storage
     from .runs import RunSettings
 
     budgets = _budgets(args, prob)
@@ -927,7 +934,7 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
     return RunSettings(
         storage=args.storage
         or storage_default
-        or str(Path("results") / prob.name / "studies.journal"),
+        or str(default_storage(prob.name)),
         study=args.study,
         trials=trials,
         baseline_trials=btrials,
@@ -942,6 +949,7 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
 
 def _search(args: argparse.Namespace) -> int:
     from .plan import load_plan
+    from .rundir import default_dir
     from .runs import Seeded, run_record, write_run
 
     prob = _load(args.problem)
@@ -949,7 +957,7 @@ def _search(args: argparse.Namespace) -> int:
     if settings is None:
         return EXIT_INPUT
     seeded = [Seeded(load_plan(p, prob.arm.joint_names), "hand") for p in args.plan]
-    out_dir = args.out or Path("results") / prob.name / args.study
+    out_dir = args.out or default_dir(prob.name, args.study)
     out = _console_for(prob)
     result = _run_and_show(out, prob, settings, seeded)
     names = write_run(out_dir, prob, result, run_record(prob, settings, result))
@@ -961,7 +969,8 @@ def _report_if(args, out, result, out_dir: Path, prob) -> list[str]:  # type: ig
     """With --figures: report.md and its PNGs in the results folder."""
     if not args.figures or not result.ranked:
         return []
-    from .runreport import read_run, write_report
+    from .rundir import read_run
+    from .runreport import write_report
 
     with out.status("drawing the report's figures…"):
         return write_report(read_run(out_dir), prob)
@@ -974,7 +983,7 @@ def _swap(args: argparse.Namespace) -> int:
 
     from .problem import load_problem
     from .report import fmt, swap_table, tier_moves
-    from .runreport import read_json
+    from .rundir import RUN_JSON, default_dir, read_record
     from .runs import previous_plans, run_record, tier_depth, write_run
 
     from_dir: Path = args.from_dir
@@ -984,7 +993,7 @@ def _swap(args: argparse.Namespace) -> int:
         )
         return EXIT_INPUT
     prob = load_problem(args.problem, actuator_files=args.actuators)
-    old_run: dict = read_json(from_dir / "run.json") if (from_dir / "run.json").is_file() else {}
+    old_run = read_record(from_dir)
     old_study = str(old_run.get("study") or from_dir.name)
     if args.study is None:
         tag = hashlib.sha256(b"".join(a.read_bytes() for a in args.actuators)).hexdigest()[:6]
@@ -998,7 +1007,7 @@ def _swap(args: argparse.Namespace) -> int:
     old_storage = old_run.get("storage")
     if old_storage and "***" in str(old_storage) and not args.storage:
         raise InputError(
-            from_dir / "run.json",
+            from_dir / RUN_JSON,
             "storage",
             "the earlier run's storage URL is kept without its password: give --storage",
         )
@@ -1008,7 +1017,7 @@ def _swap(args: argparse.Namespace) -> int:
     seeded = previous_plans(from_dir, prob, args.top)
     if not seeded:
         raise InputError(from_dir, "", "holds no ranked plan to carry over (plans/rank-NN.toml)")
-    out_dir = args.out or Path("results") / prob.name / args.study
+    out_dir = args.out or default_dir(prob.name, args.study)
     if out_dir.resolve() == from_dir.resolve():
         print(
             "tierplan: error: --out must differ from --from (the old run is kept)", file=sys.stderr
@@ -1076,8 +1085,10 @@ def _sensitivity(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .advice import sensitivities
-    from .report import SAFETY_SHORT, sensitivity_table, write_atomic
-    from .runreport import read_run, rebuild, roles, run_problem
+    from .outputs import write_atomic
+    from .report import SAFETY_SHORT, sensitivity_table
+    from .rundir import RANKING_JSON, SENSITIVITY, read_run, write_extra
+    from .runreport import rebuild, roles, run_problem
 
     run = read_run(args.run)
     prob, notes = run_problem(run, args.problem)
@@ -1086,7 +1097,7 @@ def _sensitivity(args: argparse.Namespace) -> int:
         out.print(f"[yellow]warning:[/] {escape(n)}")
     best, _, _ = roles(run.ranking)
     if best is None:
-        raise InputError(run.path / "ranking.json", "", "holds no ranked plan")
+        raise InputError(run.file(RANKING_JSON), "", "holds no ranked plan")
     label, text, make = rebuild(best, run, prob)
     with out.status("stepping each plant parameter…") as status:
         base, rows = sensitivities(
@@ -1097,10 +1108,10 @@ def _sensitivity(args: argparse.Namespace) -> int:
     doc = {"label": label, "plan_text": text, "error_index": base.error_index,
            "rows": [r.to_dict() for r in rows]}
     body = json.dumps(doc, indent=2) + "\n"
-    write_atomic(run.path / "sensitivity.json", body)
+    f = write_extra(run.path, SENSITIVITY, body)
     if args.json:
         write_atomic(args.json, body)
-    out.print(f"wrote {run.path / 'sensitivity.json'} (for 'tierplan report {run.path}')")
+    out.print(f"wrote {f} (for 'tierplan report {run.path}')")
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     return EXIT_OK
 
@@ -1111,7 +1122,9 @@ def _upgrade(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .advice import upgrade_advice
-    from .report import SAFETY_SHORT, upgrade_table, write_atomic
+    from .outputs import write_atomic
+    from .report import SAFETY_SHORT, upgrade_table
+    from .rundir import UPGRADE, write_extra
     from .runs import previous_plans
 
     if not args.factor > 1.0:
@@ -1139,10 +1152,10 @@ def _upgrade(args: argparse.Namespace) -> int:
         "problem's perturbed plants (robust error)"
     )
     body = json.dumps([r.to_dict() for r in rows], indent=2) + "\n"
-    write_atomic(args.from_dir / "upgrade.json", body)
+    f = write_extra(args.from_dir, UPGRADE, body)
     if args.json:
         write_atomic(args.json, body)
-    out.print(f"wrote {args.from_dir / 'upgrade.json'} (for 'tierplan report {args.from_dir}')")
+    out.print(f"wrote {f} (for 'tierplan report {args.from_dir}')")
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     return EXIT_OK
 
@@ -1276,8 +1289,9 @@ def _export(args: argparse.Namespace) -> int:
     from rich.markup import escape
 
     from .export import export_files
+    from .outputs import write_atomic
     from .plan import load_plan
-    from .report import SAFETY_SHORT, write_atomic
+    from .report import SAFETY_SHORT
 
     prob = _load(args.problem)
     plan = load_plan(args.plan, prob.arm.joint_names)
@@ -1301,7 +1315,8 @@ def _fit(args: argparse.Namespace) -> int:
     from rich.table import Table
 
     from .fit import FrequencyLog, fit_auto, fit_model, read_log
-    from .report import console, write_atomic
+    from .outputs import write_atomic
+    from .report import console
 
     if args.write and not args.joint:
         print("tierplan: error: --write needs --joint NAME (the table to update)", file=sys.stderr)

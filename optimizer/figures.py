@@ -243,7 +243,7 @@ def pareto_figure(
         and _truthy(r.get("feasible"))
         and r.get("value_2") not in (None, "")
     ]
-    from .search import SECOND_OBJECTIVES, pareto_front
+    from .objectives import SECOND_OBJECTIVES, pareto_front
 
     direction = SECOND_OBJECTIVES[second][0] if second in SECOND_OBJECTIVES else "minimize"
     if pts:

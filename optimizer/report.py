@@ -4,11 +4,8 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import sys
-import tempfile
 from collections.abc import Sequence
-from pathlib import Path
 
 from rich.console import Console
 from rich.markup import escape
@@ -269,23 +266,6 @@ def reasons(items: Sequence[Score | RobustScore]) -> list[str]:
     return out
 
 
-def write_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` via a temporary file and rename: never half a file."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
 def scores_json(scores: Sequence[Score | RobustScore]) -> str:
     """The scores as a JSON list (see ``Score.to_dict`` and ``RobustScore.to_dict``)."""
     return json.dumps([s.to_dict() for s in scores], indent=2, allow_nan=False) + "\n"
@@ -388,19 +368,6 @@ def tier_moves(before: dict[str, int], after: dict[str, int]) -> list[str]:
         if a != b:
             lines.append(f"{j}: in {a} tier{'s' if a != 1 else ''} before, {b} now")
     return lines
-
-
-def csv_text(rows: Sequence[dict], columns: Sequence[str]) -> str:
-    """Rows as CSV text with the given columns (missing values empty)."""
-    import csv
-    import io
-
-    buf = io.StringIO()
-    w = csv.writer(buf)
-    w.writerow(columns)
-    for r in rows:
-        w.writerow(["" if r.get(c) is None else r.get(c) for c in columns])
-    return buf.getvalue()
 
 
 def robustness_table(results: Sequence[RobustScore], n: int) -> Table:

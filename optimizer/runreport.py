@@ -1,27 +1,26 @@
 """A search run read back from its folder: candidates rebuilt, numbers reproduced, report.md.
 
-A run folder (``results/<problem>/<study>``) holds ``run.json``, ``ranking.json``,
-``trials.csv`` and ``plans/rank-NN.toml``; ``robustness.json`` appears when
-``compare --from`` ran on it. Everything here reads those files and the problem file
-named in ``run.json``; nothing prints.
+The folder's files are read through ``rundir`` (which alone knows the layout); here
+the entries become candidates again, are re-scored against the problem file named in
+run.json, and the report is written. Nothing prints.
 """
 
 from __future__ import annotations
 
-import csv
 import json
 from collections.abc import Sequence
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from .compare import Candidate
 from .evaluate import Score, evaluate, joint_controller, joint_gains_text, plan_controller
-from .exceptions import InputError, printable
+from .exceptions import InputError
+from .outputs import write_atomic
 from .plan import load_plan
 from .problem import Problem, load_problem
-from .report import SAFETY_FULL, change, fmt, write_atomic
+from .report import SAFETY_FULL, change, fmt
 from .robust import RobustScore, evaluate_robust, plant_set
+from .rundir import RANKING_JSON, REPORT, RUN_JSON, RunFolder, plan_path
 from .simulate import Rollout
 
 #: Figures of a ranked entry that ``score --from`` must reproduce exactly.
@@ -44,84 +43,13 @@ REPRODUCED = (
 )
 
 
-@dataclass(frozen=True)
-class RunFolder:
-    """The files of one search run."""
-
-    path: Path
-    """The run folder."""
-    record: dict[str, Any]
-    """run.json."""
-    ranking: list[dict[str, Any]]
-    """ranking.json entries, best first."""
-    trials: list[dict[str, str]]
-    """trials.csv rows."""
-    robustness: list[dict[str, Any]] | None
-    """Entries of robustness.json (``compare --from``), or None."""
-    robustness_seed: int | None = None
-    """Seed of the perturbed plants of robustness.json, or None."""
-    sensitivity: dict[str, Any] | None = None
-    """sensitivity.json (``tierplan sensitivity``), or None."""
-    upgrade: list[dict[str, Any]] | None = None
-    """upgrade.json (``tierplan upgrade``), or None."""
-
-
-def read_json(path: Path, missing: str = "not found: give a search's results folder") -> Any:
-    """A JSON file of a run folder; missing or unreadable is an InputError naming it."""
-    from .inputs import read_text
-
-    if not Path(path).exists():
-        raise InputError(path, "", missing)
-    try:
-        return json.loads(read_text(path, "results file"))
-    except ValueError as err:
-        raise InputError(path, "", f"could not be read as JSON: {err}") from err
-
-
-def read_run(path: Path) -> RunFolder:
-    """Read a run folder; a missing or unreadable file is an InputError naming it."""
-    path = Path(path)
-    if not path.is_dir():
-        raise InputError(path, "", "is not a folder: give a search's results folder")
-    record = read_json(path / "run.json")
-    ranking = read_json(path / "ranking.json")
-    if not isinstance(record, dict):
-        raise InputError(path / "run.json", "", "must hold a JSON object")
-    if not isinstance(ranking, list) or not all(isinstance(e, dict) for e in ranking):
-        raise InputError(path / "ranking.json", "", "must hold a list of ranked entries")
-    for e in ranking:  # labels and plan texts reach the terminal and the report
-        for k in ("label", "plan_text", "source"):
-            if isinstance(e.get(k), str):
-                e[k] = printable(e[k], 300)
-    trials: list[dict[str, str]] = []
-    if (path / "trials.csv").is_file():
-        with open(path / "trials.csv", newline="", encoding="utf-8") as f:
-            trials = list(csv.DictReader(f))
-    rob = read_json(path / "robustness.json") if (path / "robustness.json").is_file() else None
-    seed = None
-    if isinstance(rob, dict):
-        seed = rob.get("seed")
-        rob = rob.get("entries")
-    if rob is not None and (
-        not isinstance(rob, list) or not all(isinstance(r, dict) for r in rob)
-    ):
-        raise InputError(path / "robustness.json", "entries", "must be a list of entries")
-    sens = read_json(path / "sensitivity.json") if (path / "sensitivity.json").is_file() else None
-    upg = read_json(path / "upgrade.json") if (path / "upgrade.json").is_file() else None
-    if sens is not None and not isinstance(sens, dict):
-        raise InputError(path / "sensitivity.json", "", "must hold a JSON object")
-    if upg is not None and not isinstance(upg, list):
-        raise InputError(path / "upgrade.json", "", "must hold a list")
-    return RunFolder(path, record, ranking, trials, rob, seed, sens, upg)
-
-
 def run_problem(run: RunFolder, problem_path: Path | None = None) -> tuple[Problem, list[str]]:
     """The run's problem (with its actuator files), and warnings when it changed since."""
     rec = run.record
     if problem_path is None:
         given = rec.get("problem")
         if not given:
-            raise InputError(run.path / "run.json", "problem", "missing; give --problem FILE")
+            raise InputError(run.file(RUN_JSON), "problem", "missing; give --problem FILE")
         cand = Path(given)
         if not cand.is_absolute() and not cand.is_file() and rec.get("cwd"):
             cand = Path(rec["cwd"]) / given
@@ -146,7 +74,7 @@ def changed_since(run: RunFolder, problem: Problem) -> str | None:
 
 def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidate:
     """The candidate (label, plan text, controller factory) of one ranked entry."""
-    where = run.path / "ranking.json"
+    where = run.file(RANKING_JSON)
     key = f"[rank {entry.get('rank')}]"
     label = str(entry.get("label", ""))
     if entry.get("kind") == "joint_space":
@@ -163,7 +91,7 @@ def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidat
             return joint_controller(p, kp, zeta, label=label)
 
         return label, joint_gains_text(tuple(kp), zeta), make_joint
-    f = run.path / "plans" / f"rank-{int(entry.get('rank', 0)):02d}.toml"
+    f = plan_path(run.path, entry.get("rank", 0))
     if not f.is_file():
         raise InputError(f, "", f"missing: the plan of {key} in {where}")
     plan = load_plan(f, problem.arm.joint_names)
@@ -286,7 +214,7 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
     figs = rollout_figures(run.path, problem, series)
 
     def put(fig: Any, name: str, caption: str) -> None:
-        fg.save(fig, run.path / name)
+        fg.save(fig, run.file(name))
         figs.append((name, caption))
 
     if run.trials:
@@ -341,8 +269,8 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
             "fig-upgrade.png",
             "How much lower the best robust error gets with each joint's drive made faster.",
         )
-    write_atomic(run.path / "report.md", report_text(run, problem, figs, notes))
-    return ["report.md"] + [f for f, _ in figs]
+    write_atomic(run.file(REPORT), report_text(run, problem, figs, notes))
+    return [REPORT] + [f for f, _ in figs]
 
 
 def problem_paragraph(problem: Problem, record: dict[str, Any]) -> str:

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
-import json
 import math
 import os
 import platform
@@ -22,50 +21,13 @@ from typing import Any
 import numpy as np
 import optuna
 
-from . import __version__, ladder
+from . import __version__, ladder, rundir
 from . import search as srch
 from .evaluate import plan_controller
 from .plan import Plan, load_plan, parse_plan
 from .problem import Problem
-from .report import csv_text, write_atomic
 from .robust import evaluate_robust, plant_set
 from .tomlio import tomllib
-
-#: Columns of ranking.csv.
-RANKING_COLUMNS = [
-    "rank",
-    "label",
-    "kind",
-    "source",
-    "trial",
-    "tiers",
-    "plan_text",
-    "pos_rms_mm",
-    "rot_rms_deg",
-    "pos_max_mm",
-    "rot_max_deg",
-    "stiffness_margin",
-    "delay_margin_ms",
-    "bandwidth_margin",
-    "slowest_mode_s",
-    "peak_torque_ratio",
-    "tau_rms_nm",
-    "error_index",
-    "plants",
-    "plants_feasible",
-    "feasible_share",
-    "p90_error",
-    "worst_error",
-    "mean_error",
-    "statistic",
-    "robust_error",
-    "late_gain",
-    "converged",
-    "vs_tuned_osc",
-    "vs_tuned_joint",
-    "pareto",
-    "feasible",
-]
 
 
 @dataclass(frozen=True)
@@ -450,82 +412,26 @@ def _file_sha256(path: object) -> str | None:
 def write_run(
     out_dir: Path, problem: Problem, result: RunResult, record: dict[str, Any]
 ) -> list[str]:
-    """Write ranking.json/.csv, trials.csv, best-plan.toml, plans/rank-NN.toml, run.json.
-
-    Each file is written whole or not at all (temporary file and rename). Returns the
-    names written.
-    """
-    ranked = result.ranked
-    write_atomic(
-        out_dir / "ranking.json",
-        json.dumps([{k: v for k, v in e.items() if k != "plan_toml"} for e in ranked], indent=2)
-        + "\n",
-    )
-    write_atomic(out_dir / "ranking.csv", csv_text(ranked, RANKING_COLUMNS))
-    rows = trial_rows(result.studies)
-    write_atomic(out_dir / "trials.csv", csv_text(rows, list(rows[0]) if rows else ["study"]))
-    names = ["ranking.csv", "ranking.json", "trials.csv"]
-    study = record.get("study", "")
-    plan_files = set()
-    for e in ranked:
-        if e.get("plan_toml"):
-            f = out_dir / "plans" / f"rank-{e['rank']:02d}.toml"
-            write_atomic(
-                f,
-                f"# rank {e['rank']} of study '{study}' on {problem.name} (simulation only)\n"
-                + e["plan_toml"],
-            )
-            plan_files.add(f.name)
-    for old in (out_dir / "plans").glob("rank-*.toml"):  # left by an earlier, longer ranking
-        if old.name not in plan_files:
-            old.unlink()
-    if plan_files:
-        names.append("plans/")
-    best = next((e for e in ranked if e["kind"] == "plan"), None)
-    if best and best.get("plan_toml"):
-        write_atomic(
-            out_dir / "best-plan.toml",
-            f"# best plan of study '{study}' on {problem.name} (simulation only)\n"
-            + best["plan_toml"].replace('label = "', 'label = "best: ', 1),
-        )
-        names.append("best-plan.toml")
-    write_atomic(out_dir / "run.json", json.dumps(record, indent=2) + "\n")
-    names.append("run.json")
-    return names
+    """Write the run folder (``rundir.write_run``); returns the names written."""
+    return rundir.write_run(out_dir, problem.name, result.ranked, trial_rows(result.studies),
+                            record)
 
 
 def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
-    """The top ``top`` plans of an earlier run (``plans/rank-NN.toml`` and ranking.json).
+    """The top ``top`` plans of an earlier run (its ranked plan files).
 
     Raises InputError (via the loaders) when the folder or its files are unreadable.
     """
-    from .exceptions import InputError
-    from .runreport import read_json
-
-    ranking_path = run_dir / "ranking.json"
-    ranking = read_json(
-        ranking_path, "no ranking.json here: --from takes a search's results folder"
+    ranking = rundir.read_ranking(
+        run_dir, "no ranking.json here: --from takes a search's results folder"
     )
-    if not isinstance(ranking, list):
-        raise InputError(ranking_path, "", "must hold a list of ranked entries")
     out: list[Seeded] = []
-    for e in ranking:
-        if not isinstance(e, dict) or e.get("kind") != "plan" or "rank" not in e:
-            continue
-        f = run_dir / "plans" / f"rank-{int(e['rank']):02d}.toml"
-        if not f.is_file():
-            continue
-        plan = load_plan(f, problem.arm.joint_names)
-        plan = dataclasses.replace(plan, label=f"previous #{int(e['rank'])}")
-        extra = {"previous_rank": int(e["rank"]), "previous_error_index": e.get("error_index")}
-        out.append(Seeded(plan, "previous", extra))
-        if len(out) == top:
-            break
-    if not out and (run_dir / "best-plan.toml").is_file():  # a run from before plans/
-        plan = load_plan(run_dir / "best-plan.toml", problem.arm.joint_names)
-        plan = dataclasses.replace(plan, label="previous #1")
-        best = next((e for e in ranking if isinstance(e, dict) and e.get("kind") == "plan"), {})
-        extra = {"previous_rank": 1, "previous_error_index": best.get("error_index")}
+    for e, f in rundir.ranked_plan_paths(run_dir, ranking)[:top]:
+        rank = int(e["rank"])
+        plan = dataclasses.replace(
+            load_plan(f, problem.arm.joint_names), label=f"previous #{rank}"
+        )
+        extra = {"previous_rank": rank, "previous_error_index": e.get("error_index")}
         out.append(Seeded(plan, "previous", extra))
     return out
 

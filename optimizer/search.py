@@ -44,6 +44,7 @@ from .evaluate import (
 )
 from .exceptions import InputError
 from .journal import journal_storage
+from .objectives import directions, pareto_front
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
 from .robust import RobustScore, evaluate_robust, plant_set
@@ -59,18 +60,6 @@ HOST = socket.gethostname()
 STALE_S = 60.0
 #: Study kinds and the suffix of their study names.
 KINDS = {"plan": "", "osc": ".osc", "joint_space": ".joint"}
-#: Second objectives of the two-objective mode: optuna direction and what is measured.
-SECOND_OBJECTIVES = {
-    "margin": ("maximize", "stiffness margin: factor on every stiffness, ζ held [-]"),
-    "effort": ("minimize", "RMS commanded torque over the set [N·m]"),
-}
-
-
-def directions(objectives: Sequence[str]) -> list[str]:
-    """Optuna directions of ``("error",)`` or ``("error", <second>)``."""
-    return ["minimize"] + [SECOND_OBJECTIVES[o][0] for o in objectives[1:]]
-
-
 def _values(
     objectives: Sequence[str], error: float, score: Any | None
 ) -> float | tuple[float, float]:
@@ -789,17 +778,6 @@ def feasible(t: optuna.trial.FrozenTrial) -> bool:
         and "score" in t.user_attrs
         and all(c <= 0.0 for c in (t.constraints or {}).values())
     )
-
-
-def pareto_front(points: Sequence[Sequence[float]], dirs: Sequence[str]) -> list[bool]:
-    """Whether each point is non-dominated under ``dirs`` (``minimize``/``maximize``)."""
-    sign = np.array([1.0 if d == "minimize" else -1.0 for d in dirs])
-    p = np.asarray(points, dtype=float).reshape(len(points), len(dirs)) * sign
-    out = []
-    for i in range(len(p)):
-        dominated = np.all(p <= p[i], axis=1) & np.any(p < p[i], axis=1)
-        out.append(not bool(dominated.any()))
-    return out
 
 
 def late_gain(study: optuna.Study, share: float = 0.25) -> float | None:

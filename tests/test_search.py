@@ -13,6 +13,7 @@ from optimizer import search as srch
 from optimizer.cli import main
 from optimizer.evaluate import score_plan
 from optimizer.exceptions import InputError
+from optimizer.objectives import pareto_front
 from optimizer.plan import load_plan
 
 
@@ -151,8 +152,8 @@ def test_search_beats_tuned_single_tier_osc_on_the_planar_arm(
 def test_pareto_front_of_known_points() -> None:
     """Non-dominated points under (minimize, maximize); a duplicate stays on the front."""
     pts = [(1.0, 0.1), (2.0, 0.3), (1.5, 0.05), (3.0, 0.3), (1.0, 0.1)]
-    assert srch.pareto_front(pts, ["minimize", "maximize"]) == [True, True, False, False, True]
-    assert srch.pareto_front(pts, ["minimize", "minimize"]) == [True, False, True, False, True]
+    assert pareto_front(pts, ["minimize", "maximize"]) == [True, True, False, False, True]
+    assert pareto_front(pts, ["minimize", "minimize"]) == [True, False, True, False, True]
 
 
 @pytest.mark.parametrize("second", ["margin", "effort"])
