@@ -1,7 +1,18 @@
-"""``python -m optimizer`` runs the command line."""
+"""``python -m optimizer`` and the ``tierplan`` command run the command line."""
 
 import sys
 
-from .cli import main
 
-sys.exit(main())
+def run() -> int:
+    """The command line; a Ctrl-C while its modules load ends as quietly as one during a
+    command (exit 130, one line)."""
+    try:
+        from .cli import main
+    except KeyboardInterrupt:
+        print("tierplan: interrupted", file=sys.stderr)
+        return 130
+    return main()
+
+
+if __name__ == "__main__":
+    sys.exit(run())

@@ -8,10 +8,13 @@ makes tracking error honest (``DESIGN.md``, "What makes the simulation honest").
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
+import os
 import re
-from collections.abc import Mapping, Sequence
+import sys
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -45,13 +48,46 @@ class PlantDeviation:
     """Extra scale per link name, multiplied with ``mass_scale`` [-]."""
 
 
+@contextlib.contextmanager
+def _stderr_caught() -> Iterator[Callable[[], list[str]]]:
+    """Hold what C++ code writes to file descriptor 2 during the block (the URDF reader
+    prints its complaints there); the yielded function returns those lines afterwards."""
+    import tempfile
+
+    lines: list[str] = []
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+    except (OSError, ValueError):  # no usable fd 2 (embedded, closed): nothing to hold
+        yield lambda: lines
+        return
+    with tempfile.TemporaryFile() as tmp:
+        os.dup2(tmp.fileno(), 2)
+        try:
+            yield lambda: lines
+        finally:
+            os.dup2(saved, 2)
+            os.close(saved)
+            tmp.seek(0)
+            lines += tmp.read(20_000).decode("utf-8", "replace").splitlines()
+
+
 def build_model(urdf_xml: str, source: object) -> pin.Model:
     """Build a fixed-base pinocchio model from URDF text; errors name ``source``."""
-    try:
-        model = pin.buildModelFromXML(urdf_xml)
-    except Exception as err:  # pinocchio raises ValueError/RuntimeError with C++ text
-        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
-        raise ProblemError(source, "", f"URDF could not be read: {first}") from err
+    with _stderr_caught() as noise:
+        try:
+            model = pin.buildModelFromXML(urdf_xml)
+        except Exception as err:  # pinocchio raises ValueError/RuntimeError with C++ text
+            failure: Exception | None = err
+        else:
+            failure = None
+    if failure is not None:
+        # the C++ reader's own reason (its "Error: ..." lines on stderr) beats the wrapper's
+        said = [ln.strip().removeprefix("Error:").strip() for ln in noise() if "Error" in ln]
+        first = said[0] if said else (str(failure).strip().splitlines() or [""])[0]
+        raise ProblemError(
+            source, "", f"URDF could not be read: {first or type(failure).__name__}"
+        ) from failure
     if model.nv == 0:
         raise ProblemError(source, "", "URDF has no movable joint")
     for jid in range(1, model.njoints):
@@ -233,6 +269,10 @@ def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
     return ET.tostring(root, encoding="unicode")
 
 
+#: The joint types of the URDF format (the tool then accepts the one-DoF ones).
+URDF_JOINT_TYPES = ("revolute", "continuous", "prismatic", "fixed", "floating", "planar")
+
+
 def _numbers(el: Any, attr: str, count: int, default: str | None, where: str) -> list[float]:
     raw = el.get(attr, default)
     if raw is None:
@@ -292,9 +332,19 @@ def check_urdf_content(root: Any, what: str, key: str, problem_path: object) -> 
                                      f" {ev[2]:.3g} break the triangle inequality (no rigid "
                                      "body has them)")
         parent_of: dict[str, str] = {}
+        joint_names: set[str] = set()
         for joint in root.findall("joint"):
-            jname = joint.get("name") or "?"
+            jname = joint.get("name")
+            if not jname:
+                raise ValueError("a <joint> has no name")
+            if jname in joint_names:
+                raise ValueError(f"joint '{jname}' is defined twice")
+            joint_names.add(jname)
             where = f"joint '{jname}'"
+            jtype = joint.get("type")
+            if jtype not in URDF_JOINT_TYPES:
+                raise ValueError(f"{where} has type '{str(jtype)[:40]}'; a URDF joint is one "
+                                 f"of {', '.join(URDF_JOINT_TYPES)}")
             if joint.find("mimic") is not None:
                 raise ValueError(f"{where} is a <mimic> joint; coupled joints are not "
                                  "supported (make it fixed, or model it as its own joint)")

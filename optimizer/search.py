@@ -25,7 +25,7 @@ import signal
 import socket
 import time
 import warnings
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from typing import Any
@@ -639,8 +639,48 @@ def study_options(
     return {"sampler": name, "x0": x0, "warmup": max(0, len(problem.references) - 1)}
 
 
+#: In a worker process: True while it runs trials (``run_worker``), False while idle.
+_WORKING = False
+
+
+def worker_start() -> None:
+    """Pool initializer of a worker process: how it takes Ctrl-C.
+
+    A terminal's Ctrl-C reaches every process of the group, and the parent then sends
+    SIGINT again to stop its workers. The first SIGINT stops the trial in flight
+    (KeyboardInterrupt: optuna ends that trial as failed, which a resume retries); any
+    later one is ignored, so it cannot land in the middle of that clean-up and print a
+    traceback. A worker that is idle, waiting for a job, has nothing to stop and ignores
+    it: the parent's shutdown ends it.
+    """
+    signal.signal(signal.SIGINT, _worker_sigint)
+    if hasattr(signal, "pthread_sigmask"):  # the parent spawned it with SIGINT blocked
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
+
+
+def _worker_sigint(signum: int, frame: Any) -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if _WORKING:
+        raise KeyboardInterrupt
+
+
+@contextlib.contextmanager
+def _sigint_blocked() -> Iterator[None]:
+    """SIGINT held pending in this thread (and processes it starts) for the block."""
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
 def run_worker(job: WorkerJob) -> int:
-    """Run ``job.n_trials`` trials of one study in this process; returns trials run."""
+    """Run ``job.n_trials`` trials of one study in this process; returns trials run (fewer
+    when Ctrl-C stopped it: the parent, interrupted too, ranks what finished)."""
+    global _WORKING
     quiet_optuna()
     problem = load_problem(job.problem_path, check_reach=False, actuator_files=job.actuator_files)
     opts = study_options(problem, job.kind)
@@ -648,12 +688,20 @@ def run_worker(job: WorkerJob) -> int:
     study = open_study(
         job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts
     )
-    study.optimize(
-        objective(problem, job.kind, job.prune, job.objectives),
-        n_trials=job.n_trials,
-        catch=(Exception,),
-        callbacks=[Budget(job.total)] if job.total else [],
-    )
+    n0 = finished(study)
+    _WORKING = True
+    try:
+        study.optimize(
+            objective(problem, job.kind, job.prune, job.objectives),
+            n_trials=job.n_trials,
+            catch=(Exception,),
+            callbacks=[Budget(job.total)] if job.total else [],
+        )
+    except KeyboardInterrupt:  # the trial in flight is already ended; say so quietly
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        return max(0, finished(study) - n0)
+    finally:
+        _WORKING = False
     return job.n_trials
 
 
@@ -747,9 +795,13 @@ def run_search(
         if s > 0
     ]
     ctx = multiprocessing.get_context("spawn")
-    pool = ProcessPoolExecutor(max_workers=len(jobs), mp_context=ctx)
+    pool = ProcessPoolExecutor(max_workers=len(jobs), mp_context=ctx, initializer=worker_start)
     try:
-        futures = [pool.submit(run_worker, j) for j in jobs]
+        # Workers start with SIGINT blocked (the mask survives exec) until worker_start
+        # has installed their handler: a Ctrl-C while one imports stays pending instead
+        # of printing a traceback; here it is delivered as soon as they are spawned.
+        with _sigint_blocked():
+            futures = [pool.submit(run_worker, j) for j in jobs]
         while not all(f.done() for f in futures):
             if on_progress:
                 on_progress(study)

@@ -22,3 +22,14 @@ def demo() -> Problem:
 @pytest.fixture(scope="session")
 def planar() -> Problem:
     return load_problem(PLANAR)
+
+
+def pytest_terminal_summary(terminalreporter) -> None:  # type: ignore[no-untyped-def]
+    """Counts of the generated bad inputs by kind (the fuzz tests' tally)."""
+    from fuzzing import summary
+
+    lines = summary()
+    if lines:
+        terminalreporter.write_sep("-", "generated bad inputs by kind")
+        for line in lines:
+            terminalreporter.write_line(line)

@@ -22,6 +22,7 @@ import pytest
 import tomlkit
 from hypothesis import HealthCheck, assume, event, given, settings
 from hypothesis import strategies as st
+from fuzzing import tally
 from problems import PLANAR, PLANAR_PLANS
 
 from optimizer.cli import main
@@ -144,8 +145,10 @@ def _check_problem(folder: Path, doc: dict, what: list[str]) -> None:
     assert "Traceback" not in msg
     if rc == 0:
         event("problem: still valid")
+        tally("problem file", "accepted")
         return
     event("problem: rejected")
+    tally("problem file", "refused")
     assert msg.count("\n") == 1, (what, msg)
     head = f"tierplan: error: {path}: "
     assert msg.startswith(head), (what, msg)
@@ -193,6 +196,7 @@ def _check_plan(folder: Path, doc: dict, what: list[str]) -> None:
         load_plan(path, JOINTS)
     except PlanError as err:
         event("plan: rejected")
+        tally("plan file", "refused")
         msg = str(err)
         assert "\n" not in msg
         assert msg.startswith(f"{path}: "), (what, msg)
@@ -200,6 +204,7 @@ def _check_plan(folder: Path, doc: dict, what: list[str]) -> None:
         assert key and reason.strip(), (what, msg)
         return
     event("plan: still valid")
+    tally("plan file", "accepted")
 
 
 @FUZZ
