@@ -6,6 +6,7 @@ Parsing and printing only."""
 from __future__ import annotations
 
 import argparse
+import contextlib
 import functools
 import logging
 import sys
@@ -1325,13 +1326,17 @@ def _fit(args: argparse.Namespace) -> int:
         print(f"tierplan: error: --phase-at must be a finite frequency > 0 Hz, got "
               f"{args.phase_at}", file=sys.stderr)
         return EXIT_INPUT
-    log = read_log(args.log)
-    if args.model == "auto":
-        fit, fits, why = fit_auto(log)
-    else:
-        fit, fits, why = fit_model(log, args.model), [], f"{args.model} as asked (--model)"
     to_stdout = args.json is not None and str(args.json) == "-"
     out = console(stderr=to_stdout)
+    with out.status(f"reading {escape(str(args.log))}", spinner="line"):
+        log = read_log(args.log)
+    samples = len(log.f_hz) if isinstance(log, FrequencyLog) else len(log.t)
+    with _fit_progress(out, samples) as progress:
+        if args.model == "auto":
+            fit, fits, why = fit_auto(log, progress)
+        else:
+            fit, fits = fit_model(log, args.model, progress), []
+            why = f"{args.model} as asked (--model)"
     if isinstance(log, FrequencyLog):
         span = f"{len(log.f_hz)} points, {log.f_hz[0]:g}–{log.f_hz[-1]:g} Hz"
     else:
@@ -1391,6 +1396,35 @@ def _fit(args: argparse.Namespace) -> int:
     if args.write:
         _write_fit(args, fit, out)
     return EXIT_OK
+
+
+#: Logs with at least this many samples show a progress bar while they are fitted.
+LONG_LOG_SAMPLES = 20_000
+
+
+@contextlib.contextmanager
+def _fit_progress(out, samples: int):  # type: ignore[no-untyped-def]
+    """A progress bar (gone when done) for the fit of a long log; None for a short one."""
+    if samples < LONG_LOG_SAMPLES:
+        yield None
+        return
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+    bar = Progress(
+        TextColumn(f"fitting {samples:,} samples"),
+        BarColumn(),
+        TextColumn("{task.description}"),
+        TimeElapsedColumn(),
+        console=out,
+        transient=True,
+    )
+    with bar:
+        task = bar.add_task("", total=None)
+
+        def tell(done: int, total: int, what: str) -> None:
+            bar.update(task, completed=done, total=total, description=what)
+
+        yield tell
 
 
 def _write_fit(args: argparse.Namespace, fit, out) -> None:  # type: ignore[no-untyped-def]

@@ -13,6 +13,7 @@ from problems import DEMO
 
 from optimizer.cli import main
 from optimizer.fit import (
+    FIT_MODELS,
     FrequencyLog,
     LogError,
     TimeLog,
@@ -294,3 +295,48 @@ def test_write_problem_file_validated(tmp_path, capsys):
     p = load_problem(prob, check_reach=False)
     elbow = p.actuators[p.arm.joint_names.index("elbow")]
     assert math.isclose(elbow.model.corner_hz, 22.0, rel_tol=0.03)
+
+
+def test_progress_is_told_in_order_and_ends_at_the_total():
+    """fit_auto tells its progress: never backwards, both models named, done == total."""
+    from optimizer.fit import fit_work
+
+    log = second_order_step(8.0, 0.7, 2, 0.01, 1)
+    seen: list[tuple[int, int, str]] = []
+    fit_auto(log, lambda done, total, what: seen.append((done, total, what)))
+    done = [d for d, _, _ in seen]
+    assert done == sorted(done) and done[-1] == seen[-1][1] == fit_work(log, FIT_MODELS)
+    assert {w.split(":")[0] for _, _, w in seen} == set(FIT_MODELS)
+    assert any("refinement" in w for _, _, w in seen)
+
+
+def _write_step_log(path: Path, log: TimeLog, bad_row: int | None = None) -> None:
+    rows = [f"{t:.6f},{u:.6f},{y:.9f}" for t, u, y in zip(log.t, log.commanded, log.measured)]
+    if bad_row is not None:
+        rows[bad_row] = rows[bad_row].rsplit(",", 1)[0] + ",n/a"
+    path.write_text("# generated\ntime_s,commanded_nm,measured_nm\n" + "\n".join(rows) + "\n")
+
+
+def test_fast_and_careful_readers_agree(tmp_path):
+    """The numpy fast path of read_log gives what the row-by-row reader gives, and a bad
+    cell deep in the file still gets its line and column named (the careful reader)."""
+    from optimizer.fit import FREQUENCY_COLUMNS, TIME_COLUMNS, _parse_fast, _parse_rows
+
+    src = second_order_step(8.0, 0.7, 2, 0.01, 1)
+    path = tmp_path / "step.csv"
+    _write_step_log(path, src)
+    log = read_log(path)
+    lines = [(i + 1, ln) for i, ln in enumerate(path.read_text().splitlines())][2:]
+    fast = _parse_fast(lines, [0, 1, 2], 3)
+    assert fast is not None
+    np.testing.assert_array_equal(fast, _parse_rows(path, lines, TIME_COLUMNS, [0, 1, 2]))
+    np.testing.assert_array_equal(log.measured, fast[:, 2])
+    _write_step_log(path, src, bad_row=700)
+    with pytest.raises(LogError, match=r"line 703, column measured_nm: is not a number"):
+        read_log(path)
+    sweep = BENCH / "elbow-sweep.csv"
+    rows = [(i + 1, ln) for i, ln in enumerate(sweep.read_text().splitlines())]
+    rows = [(i, ln) for i, ln in rows if not ln.startswith("#")][1:]
+    np.testing.assert_array_equal(
+        _parse_fast(rows, [0, 1, 2], 3), _parse_rows(sweep, rows, FREQUENCY_COLUMNS, [0, 1, 2])
+    )
