@@ -110,7 +110,7 @@ def write_calibrated(
     """Write a copy of the problem file at ``target`` with ``[plant]`` keys and each
     joint's ``[actuators.<joint>]`` keys set (a joint's table gets the full model: ``model``
     and its parameters); every other key, table and comment stays. The URDF path is made
-    relative to the target's folder. Replaced whole or not at all."""
+    relative to the target's folder (an MJCF path too). Replaced whole or not at all."""
     problem_path, target = Path(problem_path), Path(target)
     from .inputs import read_text
 
@@ -120,9 +120,10 @@ def write_calibrated(
     except tomlkit.exceptions.ParseError as err:
         raise InputError(problem_path, "", f"TOML syntax error: {err}") from err
     arm = doc.get("arm")
-    if isinstance(arm, Table | InlineTable) and isinstance(arm.get("urdf"), str):
-        urdf = (problem_path.parent / str(arm["urdf"])).resolve()
-        arm["urdf"] = os.path.relpath(urdf, target.parent.resolve())
+    for model_key in ("urdf", "mjcf"):
+        if isinstance(arm, Table | InlineTable) and isinstance(arm.get(model_key), str):
+            model = (problem_path.parent / str(arm[model_key])).resolve()
+            arm[model_key] = os.path.relpath(model, target.parent.resolve())
     tp = doc.get("plant")
     if tp is None:
         tp = tomlkit.table()

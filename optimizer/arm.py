@@ -226,7 +226,7 @@ def _ro(a: np.ndarray) -> np.ndarray:
 
 #: Largest URDF file read [bytes]; a kinematic model is a few hundred kB at most.
 MAX_URDF_BYTES = 8 * 1024 * 1024
-_DECLARATION = re.compile(r"<!\s*(DOCTYPE|ENTITY)", re.IGNORECASE)
+DECLARATION = re.compile(r"<!\s*(DOCTYPE|ENTITY)", re.IGNORECASE)
 
 
 def read_urdf(path: Path, key: str, problem_path: object) -> str:
@@ -247,7 +247,7 @@ def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
     """Refuse declarations, check well-formedness, drop visual/collision elements."""
     import xml.etree.ElementTree as ET
 
-    if _DECLARATION.search(text):
+    if DECLARATION.search(text):
         raise ProblemError(
             problem_path,
             key,

@@ -19,6 +19,7 @@ LIMITS = {
     "plan": 1 * 2**20,
     "actuator file": 1 * 2**20,
     "URDF": 8 * 2**20,
+    "MJCF": 8 * 2**20,
     "trajectory CSV": 64 * 2**20,
     "bench log": 64 * 2**20,
     "results file": 64 * 2**20,

@@ -309,9 +309,19 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
 
     # -- arm -----------------------------------------------------------------
     ta = root.table("arm", required=True)
-    urdf_rel = ta.str("urdf")
-    urdf_path = (base / urdf_rel).resolve()
-    urdf_xml = read_urdf(urdf_path, "arm.urdf", path)
+    if ta.has("urdf") == ta.has("mjcf"):
+        raise ProblemError(
+            path, "arm", "needs exactly one of urdf = \"<file>\" and mjcf = \"<file>\""
+        )
+    if ta.has("urdf"):
+        urdf_path = (base / ta.str("urdf")).resolve()
+        urdf_xml = read_urdf(urdf_path, "arm.urdf", path)
+    else:
+        from .mjcf import read_mjcf
+
+        urdf_path = (base / ta.str("mjcf")).resolve()
+        urdf_xml, mjcf_warnings = read_mjcf(urdf_path, "arm.mjcf", path)
+        warnings += mjcf_warnings
     tip = ta.str("tip_frame")
     home_raw = ta.floats("home", None)
     ta.done()
@@ -433,7 +443,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
             raise ProblemError(
                 path,
                 f"actuators.{names[j]}.effort_nm",
-                "URDF effort limit is 0: give effort_nm here",
+                "the arm model gives no effort limit (0 or none): give effort_nm here",
             )
         acts.append(dataclasses.replace(a, effort_nm=eff))
     arm = _with_effort(arm, np.array([a.effort_nm for a in acts]))

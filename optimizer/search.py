@@ -641,6 +641,11 @@ def study_options(
 
 #: In a worker process: True while it runs trials (``run_worker``), False while idle.
 _WORKING = False
+#: In a worker process: a Ctrl-C came while it was not running trials; it runs none.
+_STOP = False
+#: Seconds the parent gives its workers to end after Ctrl-C before it kills them (a
+#: killed worker loses only its trial in flight, which a resume runs again).
+STOP_GRACE_S = 20.0
 
 
 def worker_start() -> None:
@@ -650,8 +655,8 @@ def worker_start() -> None:
     SIGINT again to stop its workers. The first SIGINT stops the trial in flight
     (KeyboardInterrupt: optuna ends that trial as failed, which a resume retries); any
     later one is ignored, so it cannot land in the middle of that clean-up and print a
-    traceback. A worker that is idle, waiting for a job, has nothing to stop and ignores
-    it: the parent's shutdown ends it.
+    traceback. A worker that is not running trials yet (starting, loading the problem,
+    waiting for a job) notes the request and then runs none.
     """
     signal.signal(signal.SIGINT, _worker_sigint)
     if hasattr(signal, "pthread_sigmask"):  # the parent spawned it with SIGINT blocked
@@ -659,8 +664,10 @@ def worker_start() -> None:
 
 
 def _worker_sigint(signum: int, frame: Any) -> None:
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    global _STOP
+    _STOP = True
     if _WORKING:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
         raise KeyboardInterrupt
 
 
@@ -689,8 +696,10 @@ def run_worker(job: WorkerJob) -> int:
         job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts
     )
     n0 = finished(study)
-    _WORKING = True
     try:
+        _WORKING = True
+        if _STOP:  # Ctrl-C came while it started: run nothing (checked after the flag is
+            return 0  # set, so a signal in between raises instead of being missed)
         study.optimize(
             objective(problem, job.kind, job.prune, job.objectives),
             n_trials=job.n_trials,
@@ -813,9 +822,16 @@ def run_search(
         for f in futures:
             f.result()  # re-raise a worker's error
     except KeyboardInterrupt:  # stop the workers too: each abandons its trial in flight
-        for proc in list(getattr(pool, "_processes", {}).values()):
+        procs = list(getattr(pool, "_processes", {}).values())  # no public list of them
+        for proc in procs:
             with contextlib.suppress(ProcessLookupError):
                 os.kill(proc.pid, signal.SIGINT)
+        deadline = time.monotonic() + STOP_GRACE_S
+        for proc in procs:
+            proc.join(max(0.0, deadline - time.monotonic()))
+        for proc in procs:  # one that did not end in time is killed, not waited for
+            if proc.is_alive():
+                proc.kill()
         pool.shutdown(wait=True, cancel_futures=True)
         raise
     pool.shutdown(wait=True)

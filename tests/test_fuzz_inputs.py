@@ -20,9 +20,9 @@ from typing import Any
 
 import pytest
 import tomlkit
+from fuzzing import tally
 from hypothesis import HealthCheck, assume, event, given, settings
 from hypothesis import strategies as st
-from fuzzing import tally
 from problems import PLANAR, PLANAR_PLANS
 
 from optimizer.cli import main
