@@ -28,7 +28,7 @@ import tomlkit
 from fuzzing import tally
 from hypothesis import HealthCheck, assume, event, given, settings
 from hypothesis import strategies as st
-from problems import DEMO, PLANAR
+from problems import DEMO, PLANAR, PLANAR_MJCF
 from test_fuzz_inputs import VALUES, mutated
 
 from optimizer.cli import main
@@ -376,6 +376,134 @@ def test_the_unmutated_urdf_round_trip_loads(planar_copy):
         ET.tostring(ET.fromstring(URDF_BASE), encoding="unicode")
     )
     assert load_problem(planar_copy).arm.n == 3
+
+
+# --- MJCF content -----------------------------------------------------------------
+
+MJCF_REFUSED = [
+    '<include file="other.xml"/>',
+    '<equality><joint joint1="elbow" joint2="wrist"/></equality>',
+    '<tendon><fixed name="t"><joint joint="elbow" coef="1"/></fixed></tendon>',
+    "<spaceship/>",
+]
+
+
+@st.composite
+def mjcf_case(draw: Any) -> tuple[str, list[str], bool]:
+    """(MJCF text, mutations made, certainly-wrong flag)."""
+    root = ET.fromstring(PLANAR_MJCF)
+    done: list[str] = []
+    wrong = False
+    for _ in range(draw(st.integers(1, 3))):
+        kind = draw(st.sampled_from(["number", "vector", "drop", "type", "refused", "joint",
+                                     "compiler", "junk"]))  # fmt: skip
+        elements = [e for e in root.iter() if e is not root]
+        inertials, joints = list(root.iter("inertial")), list(root.iter("joint"))
+        bodies = list(root.iter("body"))
+        if not elements:
+            break
+        if kind == "number" and inertials:
+            el = draw(st.sampled_from(inertials))
+            text = draw(NUMBER_TEXT)
+            el.set("mass", text)
+            done.append(f"mass {text!r}")
+        elif kind == "vector":
+            el = draw(st.sampled_from(elements))
+            attr = draw(st.sampled_from(["pos", "axis", "quat", "euler", "diaginertia",
+                                         "range", "fullinertia", "xyaxes", "zaxis"]))  # fmt: skip
+            text = draw(VECTOR_TEXT)
+            el.set(attr, text)
+            done.append(f"<{el.tag}> {attr}={text!r}")
+        elif kind == "drop":
+            parents = [p for p in root.iter() for _ in p]
+            p = draw(st.sampled_from(parents))
+            c = draw(st.sampled_from(list(p)))
+            p.remove(c)
+            done.append(f"drop <{c.tag}>")
+        elif kind == "type" and joints:
+            j = draw(st.sampled_from(joints))
+            t = draw(st.sampled_from(["hinge", "slide", "ball", "free", "bogus", ""]))
+            j.set("type", t)
+            done.append(f"joint type {t!r}")
+        elif kind == "refused":
+            root.append(ET.fromstring(draw(st.sampled_from(MJCF_REFUSED))))
+            done.append("refused element")
+        elif kind == "joint" and bodies:
+            body = draw(st.sampled_from(bodies))
+            ET.SubElement(body, draw(st.sampled_from(["joint", "freejoint"])), name="extra")
+            done.append("second joint")
+        elif kind == "compiler":
+            comp = root.find("compiler")
+            if comp is None:
+                comp = ET.Element("compiler")
+                root.insert(0, comp)
+            key = draw(st.sampled_from(["angle", "eulerseq", "inertiafromgeom"]))
+            comp.set(key, draw(st.sampled_from(["degree", "radian", "zyx", "XYZ", "true",
+                                                "auto", "", "xx"])))  # fmt: skip
+            done.append(f"compiler {key}")
+        elif kind == "junk":
+            host = draw(st.sampled_from(elements))
+            host.set(draw(st.sampled_from(["class", "childclass", "ref", "damping"])), "1")
+            done.append("attribute")
+    for el in root.iter("inertial"):  # judged on the final document (a later change may undo)
+        v = _number(el.get("mass", ""))
+        wrong |= v is None or v <= 0
+    wrong |= any(j.get("type", "hinge") not in ("hinge", "slide") for j in root.iter("joint"))
+    wrong |= any(c.tag in ("include", "equality", "tendon", "spaceship") for c in root)
+    wrong |= any(
+        len([j for j in b if j.tag in ("joint", "freejoint")]) > 1 or b.find("freejoint") is not None
+        for b in root.iter("body")
+    )
+    text = ET.tostring(root, encoding="unicode")
+    if draw(st.integers(0, 11)) == 0:
+        text = text[: draw(st.integers(0, len(text) - 12))]
+        wrong = True
+        done.append("truncated")
+    return text, done, wrong
+
+
+@pytest.fixture(scope="module")
+def planar_mjcf(tmp_path_factory) -> Path:
+    """The planar problem with its arm as MJCF (tests/problems.py), in its own folder."""
+    prob = _planar_in(tmp_path_factory.mktemp("fuzz-mjcf"))
+    prob.write_text(prob.read_text().replace('urdf = "arm.urdf"', 'mjcf = "arm.xml"'))
+    (prob.parent / "arm.xml").write_text(PLANAR_MJCF)
+    load_problem(prob)  # the base loads
+    return prob
+
+
+def _check_mjcf(planar_mjcf: Path, capfd, case: tuple[str, list[str], bool]) -> None:
+    text, done, wrong = case
+    path = planar_mjcf.parent / "arm.xml"
+    path.write_text(text)
+    capfd.readouterr()
+    try:
+        load_problem(planar_mjcf)
+    except ProblemError as err:
+        event("MJCF: refused")
+        tally("MJCF", "refused")
+        _one_line_naming(str(err), str(path), str(planar_mjcf))
+        assert not capfd.readouterr().err.strip()
+        return
+    event("MJCF: accepted")
+    tally("MJCF", "accepted")
+    assert not wrong, f"accepted a certainly wrong MJCF: {done}"
+    assert not capfd.readouterr().err.strip()
+
+
+@settings(FUZZ, max_examples=80)
+@given(case=mjcf_case())
+def test_malformed_mjcf_is_refused_cleanly(planar_mjcf, capfd, case):
+    """A mutated MJCF loads or is refused in one line naming it; never a crash."""
+    _check_mjcf(planar_mjcf, capfd, case)
+
+
+@pytest.mark.slow
+@settings(FUZZ, max_examples=800)
+@given(case=mjcf_case())
+def test_many_malformed_mjcf_files(planar_mjcf, capfd, case):
+    """The same property over many more generated MJCF files."""
+    _check_mjcf(planar_mjcf, capfd, case)
 
 
 # --- actuator files ---------------------------------------------------------------
