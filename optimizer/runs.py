@@ -131,37 +131,39 @@ def run_studies(
     ]
     interrupted = False
     try:
-        for kind, name, budget, objectives in runs:
-            n = budget
-            if kind == "plan":
-                enqueue += _tuned_osc_seed(problem, studies["osc"])
-            if settings.add:  # the progress total: what is there now plus what this adds
-                n += srch.finished(
-                    srch.open_study(settings.storage, name, settings.seed, settings.prune,
-                                    objectives)
+        with srch.worker_pool(settings.workers) as pool:  # one pool for the three studies
+            for kind, name, budget, objectives in runs:
+                n = budget
+                if kind == "plan":
+                    enqueue += _tuned_osc_seed(problem, studies["osc"])
+                if settings.add:  # the progress total: what is there now plus what this adds
+                    n += srch.finished(
+                        srch.open_study(settings.storage, name, settings.seed, settings.prune,
+                                        objectives)
+                    )
+
+                def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
+                    if on_progress:
+                        on_progress(kind, n, study)
+
+                studies[kind] = srch.run_search(
+                    problem,
+                    settings.storage,
+                    name,
+                    kind,
+                    budget,
+                    settings.seed,
+                    settings.workers,
+                    prune=settings.prune,
+                    enqueue=enqueue
+                    if kind == "plan"
+                    else baseline_seeds(problem, kind, seeded, settings.informed),
+                    on_progress=progress,
+                    objectives=objectives,
+                    add=settings.add,
+                    pool=pool,
                 )
-
-            def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
-                if on_progress:
-                    on_progress(kind, n, study)
-
-            studies[kind] = srch.run_search(
-                problem,
-                settings.storage,
-                name,
-                kind,
-                budget,
-                settings.seed,
-                settings.workers,
-                prune=settings.prune,
-                enqueue=enqueue
-                if kind == "plan"
-                else baseline_seeds(problem, kind, seeded, settings.informed),
-                on_progress=progress,
-                objectives=objectives,
-                add=settings.add,
-            )
-            progress(studies[kind])
+                progress(studies[kind])
     except KeyboardInterrupt:
         interrupted = True
         for kind, name, _, objectives in runs:  # what had finished, for the ranking

@@ -684,12 +684,59 @@ def _sigint_blocked() -> Iterator[None]:
         signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
+#: In a worker process: problems it has loaded, by file and actuator files (a run's
+#: studies share one pool, so a worker loads the problem once, not once per study).
+_PROBLEMS: dict[tuple[str, tuple[str, ...]], Problem] = {}
+
+
+def _worker_problem(job: WorkerJob) -> Problem:
+    key = (job.problem_path, job.actuator_files)
+    if key not in _PROBLEMS:
+        _PROBLEMS[key] = load_problem(
+            job.problem_path, check_reach=False, actuator_files=job.actuator_files
+        )
+    return _PROBLEMS[key]
+
+
+@contextlib.contextmanager
+def worker_pool(workers: int) -> Iterator[ProcessPoolExecutor | None]:
+    """One pool of ``workers`` processes for every study of a run (None for one worker):
+    each process imports numba, pinocchio and scipy once and loads the problem once."""
+    if workers <= 1:
+        yield None
+        return
+    ctx = multiprocessing.get_context("spawn")
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_start)
+    try:
+        yield pool
+    except BaseException:
+        _stop_pool(pool)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _stop_pool(pool: ProcessPoolExecutor) -> None:
+    """Ctrl-C to every worker (each abandons its trial in flight), a grace period, then
+    SIGKILL for any that is still there; the pool is shut down."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())  # no public list
+    for proc in procs:
+        with contextlib.suppress(ProcessLookupError):
+            os.kill(proc.pid, signal.SIGINT)
+    deadline = time.monotonic() + STOP_GRACE_S
+    for proc in procs:
+        proc.join(max(0.0, deadline - time.monotonic()))
+    for proc in procs:  # one that did not end in time is killed, not waited for
+        if proc.is_alive():
+            proc.kill()
+    pool.shutdown(wait=True, cancel_futures=True)
+
+
 def run_worker(job: WorkerJob) -> int:
     """Run ``job.n_trials`` trials of one study in this process; returns trials run (fewer
     when Ctrl-C stopped it: the parent, interrupted too, ranks what finished)."""
     global _WORKING
     quiet_optuna()
-    problem = load_problem(job.problem_path, check_reach=False, actuator_files=job.actuator_files)
+    problem = _worker_problem(job)
     opts = study_options(problem, job.kind)
     opts["x0"] = dict(job.x0) or None
     study = open_study(
@@ -748,6 +795,7 @@ def run_search(
     on_progress: Callable[[optuna.Study], None] | None = None,
     objectives: Sequence[str] = ("error",),
     add: bool = False,
+    pool: ProcessPoolExecutor | None = None,
 ) -> optuna.Study:
     """Bring study ``study_name`` up to ``total_trials`` ended trials (``add``: run that many).
 
@@ -755,7 +803,9 @@ def run_search(
     holds (params, user_attrs) pairs (hand plans) evaluated first, once. With
     ``workers`` > 1 the trials are split over that many processes sharing the storage,
     each with its own sampler seed; ``on_progress`` is called about once a second.
-    ``objectives`` is ``("error",)`` or ``("error", "margin" | "effort")``.
+    ``objectives`` is ``("error",)`` or ``("error", "margin" | "effort")``. ``pool``
+    (from ``worker_pool``) runs the workers' shares; without it a pool is made for this
+    study alone.
     """
     objectives = tuple(objectives)
     opts = study_options(problem, kind, enqueue)
@@ -803,8 +853,20 @@ def run_search(
         for i, s in enumerate(shares)
         if s > 0
     ]
-    ctx = multiprocessing.get_context("spawn")
-    pool = ProcessPoolExecutor(max_workers=len(jobs), mp_context=ctx, initializer=worker_start)
+    with contextlib.ExitStack() as own:
+        if pool is None:
+            pool = own.enter_context(worker_pool(len(jobs)))
+        assert pool is not None
+        _run_jobs(pool, jobs, study, on_progress)
+    return study
+
+
+def _run_jobs(
+    pool: ProcessPoolExecutor,
+    jobs: Sequence[WorkerJob],
+    study: optuna.Study,
+    on_progress: Callable[[optuna.Study], None] | None,
+) -> None:
     try:
         # Workers start with SIGINT blocked (the mask survives exec) until worker_start
         # has installed their handler: a Ctrl-C while one imports stays pending instead
@@ -822,20 +884,8 @@ def run_search(
         for f in futures:
             f.result()  # re-raise a worker's error
     except KeyboardInterrupt:  # stop the workers too: each abandons its trial in flight
-        procs = list(getattr(pool, "_processes", {}).values())  # no public list of them
-        for proc in procs:
-            with contextlib.suppress(ProcessLookupError):
-                os.kill(proc.pid, signal.SIGINT)
-        deadline = time.monotonic() + STOP_GRACE_S
-        for proc in procs:
-            proc.join(max(0.0, deadline - time.monotonic()))
-        for proc in procs:  # one that did not end in time is killed, not waited for
-            if proc.is_alive():
-                proc.kill()
-        pool.shutdown(wait=True, cancel_futures=True)
+        _stop_pool(pool)
         raise
-    pool.shutdown(wait=True)
-    return study
 
 
 # -- ranking -----------------------------------------------------------------------
