@@ -447,10 +447,29 @@ def _redact(url: str) -> str:
     return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", url)
 
 
+# -- private attributes of other libraries, used here and nowhere else ---------------
+# optuna has no public API to write to a trial that another process runs (recording the
+# worker before the sampler proposes; failing a dead worker's trial), and
+# concurrent.futures none to list a pool's processes (to stop them on Ctrl-C). Each use
+# goes through one of these three functions, so a library change breaks one place.
+
+
+def _storage_of(study: optuna.Study) -> Any:
+    return study._storage
+
+
+def _trial_id(trial: optuna.trial.FrozenTrial) -> int:
+    return int(trial._trial_id)
+
+
+def _pool_processes(pool: ProcessPoolExecutor) -> list[Any]:
+    return list((getattr(pool, "_processes", None) or {}).values())
+
+
 def _record_worker(study: optuna.Study, trial: optuna.trial.FrozenTrial) -> None:
     """Record the worker (host:pid) on a trial before anything else runs (stale-trial
     detection). No public API writes to another object's trial, so the storage is used."""
-    study._storage.set_trial_user_attr(trial._trial_id, "worker", _worker_id())
+    _storage_of(study).set_trial_user_attr(_trial_id(trial), "worker", _worker_id())
 
 
 class _TPE(optuna.samplers.TPESampler):
@@ -571,7 +590,7 @@ def _worker_gone(t: optuna.trial.FrozenTrial, now: datetime.datetime) -> bool:
 
 def _fail(study: optuna.Study, t: optuna.trial.FrozenTrial) -> None:
     """Mark another process's (or a dead one's) RUNNING trial failed: no public API does."""
-    study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+    _storage_of(study).set_trial_state_values(_trial_id(t), TrialState.FAIL)
 
 
 def abandon_own(study: optuna.Study) -> int:
@@ -718,7 +737,7 @@ def worker_pool(workers: int) -> Iterator[ProcessPoolExecutor | None]:
 def _stop_pool(pool: ProcessPoolExecutor) -> None:
     """Ctrl-C to every worker (each abandons its trial in flight), a grace period, then
     SIGKILL for any that is still there; the pool is shut down."""
-    procs = list((getattr(pool, "_processes", None) or {}).values())  # no public list
+    procs = _pool_processes(pool)
     for proc in procs:
         with contextlib.suppress(ProcessLookupError):
             os.kill(proc.pid, signal.SIGINT)

@@ -220,3 +220,18 @@ def test_urdf_and_mjcf_together_are_refused(tmp_path) -> None:
     prob.write_text(prob.read_text().replace('mjcf = "arm.xml"', 'mjcf = "arm.xml"\nurdf = "arm.urdf"'))
     with pytest.raises(ProblemError, match="exactly one of urdf"):
         load_problem(prob, check_reach=False)
+
+
+def test_a_calibrated_copy_elsewhere_still_finds_the_mjcf(tmp_path) -> None:
+    """validate --write puts the problem copy in another folder: its mjcf path is made
+    relative to that folder, and the copy loads."""
+    from optimizer.actuator_file import write_calibrated
+
+    (tmp_path / "a").mkdir()
+    prob, _ = _mjcf_problem(tmp_path / "a")
+    target = tmp_path / "elsewhere" / "calibrated.toml"
+    target.parent.mkdir()
+    write_calibrated(prob, target, {"payload_kg": 0.1}, {}, "calibrated in a test")
+    text = target.read_text()
+    assert 'mjcf = "../a/arm.xml"' in text
+    assert load_problem(target, check_reach=False).arm.n == 3
