@@ -3,7 +3,8 @@
 For each tree (the earlier commit checked out into a temporary git worktree, and this
 working tree) and each worker count, runs ``tierplan search`` on the demo with the same
 budgets and seed in a fresh folder, and measures wall time and CPU time (the process and
-its workers, from the kernel's accounting of children). Prints a table, then one line per
+its workers, from the kernel's accounting of children), after an untimed warm-up search
+per tree (numba compiles and caches each tree's kernels). Prints a table, then one line per
 worker count: ``workers=<w> cpu_ratio=<new/old> wall_ratio=<new/old>`` and for each tree
 ``speedup_2w=<wall 1 worker / wall 2 workers>`` when both counts ran. The machine is
 shared: say what else ran when you quote it.
@@ -60,6 +61,8 @@ def main() -> None:
             check=True, capture_output=True,
         )  # fmt: skip
         try:
+            for tree in (base, ROOT):  # numba compiles each tree's kernels once: not timed
+                _run(tree, 1, 2, 1)
             rows: dict[tuple[str, int], tuple[float, float]] = {}
             for w in args.workers:  # interleaved, so drift in the machine's load hits both
                 for label, tree in (("old", base), ("new", ROOT)):

@@ -6,6 +6,9 @@ import sys
 def run() -> int:
     """The command line; a Ctrl-C while its modules load ends as quietly as one during a
     command (exit 130, one line)."""
+    from .blas import one_thread
+
+    one_thread()  # before numpy loads its BLAS
     try:
         from .cli import main
     except KeyboardInterrupt:

@@ -724,6 +724,9 @@ def worker_pool(workers: int) -> Iterator[ProcessPoolExecutor | None]:
     if workers <= 1:
         yield None
         return
+    from .blas import one_thread
+
+    one_thread()  # the workers inherit the environment before their numpy loads
     ctx = multiprocessing.get_context("spawn")
     pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_start)
     try:
