@@ -29,16 +29,20 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
+from optimizer.blas import one_thread
 
-from optimizer.cli import main as cli
-from optimizer.evaluate import make_loop, osc_plan, plan_controller, score_plan
-from optimizer.ladder import gain_ladder, suggested_plan
-from optimizer.plan import load_plan
-from optimizer.problem import Problem, load_problem
-from optimizer.robust import evaluate_robust, plant_set
-from optimizer.stability import LinearLoop
-from optimizer.trajectories import Hold, sample
+one_thread()  # as the command line does, before numpy loads its BLAS
+
+import numpy as np  # noqa: E402
+
+from optimizer.cli import main as cli  # noqa: E402
+from optimizer.evaluate import make_loop, osc_plan, plan_controller, score_plan  # noqa: E402
+from optimizer.ladder import gain_ladder, suggested_plan  # noqa: E402
+from optimizer.plan import load_plan  # noqa: E402
+from optimizer.problem import Problem, load_problem  # noqa: E402
+from optimizer.robust import evaluate_robust, plant_set  # noqa: E402
+from optimizer.stability import LinearLoop  # noqa: E402
+from optimizer.trajectories import Hold, sample  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "problems/polish7/problem.toml"
