@@ -5,13 +5,17 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-import pytest
+from optimizer.blas import one_thread
+
+one_thread()  # as the command line does, before numpy loads its BLAS (idle threads spin)
+
+import pytest  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from problems import DEMO, PLANAR
+from problems import DEMO, PLANAR  # noqa: E402
 
-from optimizer.problem import Problem, load_problem
+from optimizer.problem import Problem, load_problem  # noqa: E402
 
 
 @pytest.fixture(scope="session")
