@@ -262,11 +262,37 @@ def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
         raise ProblemError(
             problem_path, key, f"{what}: the root element is <{root.tag}>, not <robot>"
         )
+    depth = xml_depth(root)
+    if depth > MAX_XML_DEPTH:
+        raise ProblemError(
+            problem_path, key, f"{what}: elements nest {depth} deep; a URDF needs a few levels "
+            f"(at most {MAX_XML_DEPTH} are read)"
+        )
     for parent in root.iter():
         for child in [c for c in parent if c.tag in ("visual", "collision")]:
             parent.remove(child)
     check_urdf_content(root, what, key, problem_path)
     return ET.tostring(root, encoding="unicode")
+
+
+#: Most links (URDF) or bodies (MJCF) an arm model may have: far beyond any arm, and
+#: below the depth at which a nested model would exhaust a recursive reader.
+MAX_LINKS = 512
+
+#: Deepest element nesting read in a URDF (its tree of links is flat: a handful of
+#: levels) or an MJCF (bodies nest, one level per body, so up to MAX_LINKS + a few).
+MAX_XML_DEPTH = MAX_LINKS + 16
+
+
+def xml_depth(root: Any) -> int:
+    """How deep the elements below ``root`` nest, counted without recursion (a deeply
+    nested document must not exhaust the interpreter's stack)."""
+    deepest, stack = 0, [(root, 1)]
+    while stack:
+        el, d = stack.pop()
+        deepest = max(deepest, d)
+        stack.extend((c, d + 1) for c in el)
+    return deepest
 
 
 #: The joint types of the URDF format (the tool then accepts the one-DoF ones).
@@ -293,6 +319,9 @@ def check_urdf_content(root: Any, what: str, key: str, problem_path: object) -> 
     inequality), origins and axes (three finite numbers, a non-zero axis), mimic joints,
     and anything but a tree of links (a link with two parents, a loop, several roots)."""
     try:
+        n_links = len(root.findall("link"))
+        if n_links > MAX_LINKS:
+            raise ValueError(f"has {n_links} links; an arm model here has at most {MAX_LINKS}")
         links = {}
         for link in root.findall("link"):
             name = link.get("name")

@@ -247,6 +247,17 @@ def _convert(text: str) -> tuple[str, list[str]]:
     for default in root.iter("default"):
         if default.find("joint") is not None:
             raise _RefusedError("<default> sets joint attributes; write them on each <joint>")
+    from .arm import MAX_LINKS, MAX_XML_DEPTH, xml_depth
+
+    depth = xml_depth(root)
+    if depth > MAX_XML_DEPTH:
+        raise _RefusedError(f"elements nest {depth} deep; at most {MAX_XML_DEPTH} are read")
+
+    n_bodies = sum(1 for _ in root.iter("body")) + sum(1 for _ in root.iter("site"))
+    if n_bodies > MAX_LINKS:
+        raise _RefusedError(
+            f"has {n_bodies} bodies and sites; an arm model here has at most {MAX_LINKS}"
+        )
     worlds = root.findall("worldbody")
     if len(worlds) != 1:
         raise _RefusedError(f"needs exactly one <worldbody>, found {len(worlds)}")

@@ -189,10 +189,12 @@ def test_the_site_is_a_tool_frame(tmp_path) -> None:
         (('<motor joint="wrist"', '<motor joint="knee"'), "names joint 'knee'"),
         (("</mujoco>", ""), "not well-formed XML"),
         (('<option timestep="0.001"/>', '<compiler eulerseq="XYZ"/>'), "fixed-axis"),
+        (('<option timestep="0.001"/>', "<asset>" + "<a>" * 3000 + "</a>" * 3000 + "</asset>"), "nest 3002 deep"),
+        (('<site name="tip" pos="0.1 0 0"/>', "".join(f'<site name="s{i}"/>' for i in range(600))), "at most 512"),
     ],
     ids=["include", "equality", "ball", "freejoint", "two-joints", "joint-pos", "geom-mass",
          "default-joint", "unknown", "declaration", "inertiafromgeom", "negative-mass",
-         "triangle", "duplicate-name", "unknown-motor-joint", "truncated", "fixed-axis-euler"],
+         "triangle", "duplicate-name", "unknown-motor-joint", "truncated", "fixed-axis-euler", "deep", "many-bodies"],
 )  # fmt: skip
 def test_unsupported_mjcf_is_refused_in_one_line(tmp_path, capsys, change, message) -> None:
     """Each unsupported or unphysical MJCF: exit 2, one line naming the MJCF file and why."""

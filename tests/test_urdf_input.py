@@ -159,3 +159,25 @@ def test_special_files_are_refused_without_reading(tmp_path, capsys, kind):
         err = capsys.readouterr().err
         assert err.count("\n") == 1 and "Traceback" not in err
         assert "not a regular file" in err or "folder" in err
+
+
+@pytest.mark.parametrize("how", ["nested", "many-links"])
+def test_deep_or_huge_trees_are_refused_in_one_line(tmp_path, capsys, how):
+    """Elements nested 5,000 deep (the XML writer recursed and crashed) or 3,000 links:
+    one line, exit 2."""
+    from optimizer.arm import MAX_LINKS
+
+    base = (PLANAR.parent / "arm.urdf").read_text()
+    if how == "nested":
+        text = base.replace('<link name="tip"/>', '<link name="tip">' + "<x>" * 5000 + "</x>" * 5000 + "</link>")
+        message = "nest 5002 deep"
+    else:
+        links = "".join(f'<link name="extra{i}"/>' for i in range(3000))
+        text = base.replace("</robot>", links + "</robot>")
+        message = f"at most {MAX_LINKS}"
+    prob, urdf = _copy(tmp_path, text)
+    with pytest.raises(ProblemError, match=message):
+        load_problem(prob, check_reach=False)
+    assert main(["check", str(prob)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and str(urdf) in err and "Traceback" not in err
