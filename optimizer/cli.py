@@ -429,11 +429,13 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _console_for(prob):  # type: ignore[no-untyped-def]
     """The output console, after the problem's warnings."""
+    from rich.markup import escape
+
     from .report import console
 
     out = console()
-    for w in prob.warnings:
-        out.print(f"[yellow]warning:[/] {w}")
+    for w in prob.warnings:  # escaped: a warning may name a table, "[actuators.x]"
+        out.print(f"[yellow]warning:[/] {escape(w)}")
     return out
 
 

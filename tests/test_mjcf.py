@@ -208,13 +208,16 @@ def test_unsupported_mjcf_is_refused_in_one_line(tmp_path, capsys, change, messa
     assert err.count("\n") == 1 and str(xml) in err and "Traceback" not in err, err
 
 
-def test_joint_damping_and_armature_are_reported_not_taken(tmp_path) -> None:
-    """Joint damping/armature/friction loss: a warning pointing at [actuators]."""
+def test_joint_damping_and_armature_are_reported_not_taken(tmp_path, capsys) -> None:
+    """Joint damping/armature/friction loss: a warning pointing at [actuators], printed
+    whole by `check` (the table name is not taken for markup)."""
     text = PLANAR_MJCF.replace('<joint name="elbow" axis', '<joint name="elbow" damping="0.5" armature="0.01" axis')
     prob, _ = _mjcf_problem(tmp_path, text)
     warns = load_problem(prob, check_reach=False).warnings
     assert any("damping=0.5" in w and "viscous_nms_per_rad" in w for w in warns)
     assert any("armature=0.01" in w and "armature_kgm2" in w for w in warns)
+    assert main(["check", str(prob)]) == 0
+    assert "[actuators.elbow]" in capsys.readouterr().out
 
 
 def test_urdf_and_mjcf_together_are_refused(tmp_path) -> None:
