@@ -674,8 +674,9 @@ def _read_actuator(
             raise t.fail(k, f"must be > 0, got {v:g}")
     try:
         model = make_model(kind, **params)
-    except ValueError as err:
-        raise t.fail(keys[0], str(err)) from err
+    except ValueError as err:  # the model's message starts with the parameter's name
+        bad = next((k for k in keys if str(err).startswith(k)), keys[0])
+        raise t.fail(bad, str(err).removeprefix(f"{bad} ")) from err
     nyq = rate / 2.0
     if model.fastest_hz() >= nyq:
         raise t.fail(

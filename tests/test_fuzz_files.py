@@ -451,7 +451,8 @@ def mjcf_case(draw: Any) -> tuple[str, list[str], bool]:
     wrong |= any(j.get("type", "hinge") not in ("hinge", "slide") for j in root.iter("joint"))
     wrong |= any(c.tag in ("include", "equality", "tendon", "spaceship") for c in root)
     wrong |= any(
-        len([j for j in b if j.tag in ("joint", "freejoint")]) > 1 or b.find("freejoint") is not None
+        len([j for j in b if j.tag in ("joint", "freejoint")]) > 1
+        or b.find("freejoint") is not None
         for b in root.iter("body")
     )
     text = ET.tostring(root, encoding="unicode")
@@ -743,3 +744,17 @@ def test_malformed_bench_logs_are_refused_cleanly(log_folder, capfd, case):
 def test_many_malformed_bench_logs(log_folder, capfd, case):
     """The same property over many more generated bench logs."""
     _check_log(log_folder, capfd, case)
+
+
+@pytest.mark.parametrize(("key", "value"), [("damping_ratio", 1e308), ("natural_hz", 1e300)])
+def test_absurd_model_parameters_are_refused_naming_their_key(
+    planar_for_actuators, tmp_path, key, value
+):
+    """Found by the generated actuator files: damping_ratio = 1e308 overflowed in the
+    model's arithmetic (a traceback). Refused now, naming that key."""
+    doc = copy.deepcopy(VALID_ACTUATORS)
+    doc["actuators"]["elbow"][key] = value
+    path = tmp_path / "absurd.toml"
+    path.write_text(tomlkit.dumps(doc))
+    with pytest.raises(ProblemError, match=rf"{path}: actuators\.elbow\.{key}: must be at most"):
+        load_problem(planar_for_actuators, actuator_files=[path])

@@ -214,8 +214,8 @@ def test_ctrl_c_under_load_never_prints_a_traceback(tmp_path, cpu_hog) -> None:
     rng = random.Random(7)
     before: dict[int, tuple] = {}
     for i in range(20):
-        proc = subprocess.Popen(
-            _command(400, workers=2), cwd=tmp_path, stdout=subprocess.DEVNULL,
+        proc = subprocess.Popen(  # a budget no run reaches in 20 s: each one is stopped
+            _command(4000, workers=2), cwd=tmp_path, stdout=subprocess.DEVNULL,
             stderr=subprocess.PIPE, start_new_session=True,
         )  # fmt: skip
         time.sleep(rng.uniform(0.3, 20.0))  # start-up, baselines, plan trials, ranking

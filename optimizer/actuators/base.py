@@ -35,11 +35,20 @@ class ActuatorModel(Protocol):
         ...
 
 
-def check_positive_finite(value: float, name: str) -> float:
-    """Return ``value`` as float, or raise ValueError saying why it is not usable."""
+#: Largest frequency [Hz] and damping ratio [-] a model takes: far beyond any torque loop,
+#: and below where the model's arithmetic overflows (ζ = 1e308 did).
+MAX_MODEL_HZ = 1e5
+MAX_DAMPING_RATIO = 100.0
+
+
+def check_positive_finite(value: float, name: str, most: float = math.inf) -> float:
+    """Return ``value`` as float, or raise ValueError saying why it is not usable: it
+    must be positive, finite and at most ``most``."""
     v = float(value)
     if not math.isfinite(v) or v <= 0.0:
         raise ValueError(f"{name} must be a positive finite number, got {value!r}")
+    if v > most:
+        raise ValueError(f"{name} must be at most {most:g}, got {value!r}")
     return v
 
 

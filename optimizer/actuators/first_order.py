@@ -8,7 +8,7 @@ from typing import ClassVar
 
 import numpy as np
 
-from .base import check_positive_finite
+from .base import MAX_MODEL_HZ, check_positive_finite
 
 
 @dataclass(frozen=True)
@@ -20,7 +20,7 @@ class FirstOrder:
     kind: ClassVar[str] = "first_order"
 
     def __post_init__(self) -> None:
-        check_positive_finite(self.corner_hz, "corner_hz")
+        check_positive_finite(self.corner_hz, "corner_hz", MAX_MODEL_HZ)
 
     def continuous(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         w = 2.0 * math.pi * self.corner_hz

@@ -8,7 +8,7 @@ from typing import ClassVar
 
 import numpy as np
 
-from .base import check_positive_finite
+from .base import MAX_DAMPING_RATIO, MAX_MODEL_HZ, check_positive_finite
 
 
 @dataclass(frozen=True)
@@ -22,8 +22,8 @@ class SecondOrder:
     kind: ClassVar[str] = "second_order"
 
     def __post_init__(self) -> None:
-        check_positive_finite(self.natural_hz, "natural_hz")
-        check_positive_finite(self.damping_ratio, "damping_ratio")
+        check_positive_finite(self.natural_hz, "natural_hz", MAX_MODEL_HZ)
+        check_positive_finite(self.damping_ratio, "damping_ratio", MAX_DAMPING_RATIO)
 
     def continuous(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         w = 2.0 * math.pi * self.natural_hz
