@@ -104,33 +104,7 @@ def planar_variant(folder: Path, *edits: tuple[str, str]) -> Path:
 
 
 #: The planar test arm (problems/planar3/arm.urdf) written as MJCF, with MJCF's own
-#: conventions: a site as the tool frame, efforts from actuatorfrcrange and from motors
-#: (gear x ctrlrange), geoms that carry no mass, angles in degrees (MJCF's default).
-PLANAR_MJCF = """<mujoco model="planar3">
-  <option timestep="0.001"/>
-  <default><geom rgba="0.7 0.7 0.7 1"/></default>
-  <worldbody>
-    <light pos="0 0 3"/>
-    <geom name="floor" type="plane" size="1 1 0.1"/>
-    <body name="upper">
-      <joint name="shoulder" type="hinge" axis="0 -1 0" range="-143.2394487827058 143.2394487827058"
-             actuatorfrcrange="-60 60"/>
-      <inertial pos="0.2 0 0" mass="2.0" diaginertia="0.001 0.0272 0.0272"/>
-      <geom type="capsule" fromto="0 0 0 0.4 0 0" size="0.03"/>
-      <body name="fore" pos="0.4 0 0">
-        <joint name="elbow" axis="0 -1 0" range="-160.42818263663048 160.42818263663048"/>
-        <inertial pos="0.15 0 0" mass="1.0" diaginertia="0.0005 0.0077 0.0077"/>
-        <body name="hand" pos="0.3 0 0">
-          <joint name="wrist" axis="0 -1 0" range="-160.42818263663048 160.42818263663048"/>
-          <inertial pos="0.05 0 0" mass="0.4" diaginertia="0.0002 0.0004 0.0004"/>
-          <site name="tip" pos="0.1 0 0"/>
-        </body>
-      </body>
-    </body>
-  </worldbody>
-  <actuator>
-    <motor joint="elbow" gear="30" ctrlrange="-1 1"/>
-    <motor joint="wrist" gear="10" ctrlrange="-1 1"/>
-  </actuator>
-</mujoco>
-"""
+#: conventions (problems/planar3/arm.xml): a site as the tool frame, efforts from
+#: actuatorfrcrange and from motors (gear x ctrlrange), geoms that carry no mass, angles in
+#: degrees (MJCF's default).
+PLANAR_MJCF = (ROOT / "problems" / "planar3" / "arm.xml").read_text()

@@ -240,3 +240,16 @@ def test_a_calibrated_copy_elsewhere_still_finds_the_mjcf(tmp_path) -> None:
     text = target.read_text()
     assert 'mjcf = "../a/arm.xml"' in text
     assert load_problem(target, check_reach=False).arm.n == 3
+
+
+def test_the_bundled_mjcf_problem_is_the_planar_problem() -> None:
+    """problems/planar3/problem-mjcf.toml is problem.toml but for its name and arm line,
+    and loads to the same joints, efforts and limits."""
+    mj = PLANAR.parent / "problem-mjcf.toml"
+    body = lambda p: [ln for ln in p.read_text().splitlines()  # noqa: E731
+                      if not ln.startswith(("#", "name =", "urdf =", "mjcf ="))]  # fmt: skip
+    assert body(mj) == body(PLANAR)
+    a, b = load_problem(mj).arm, load_problem(PLANAR).arm
+    assert a.joint_names == b.joint_names
+    np.testing.assert_allclose(a.effort, b.effort)
+    np.testing.assert_allclose(a.upper, b.upper, atol=1e-12)
