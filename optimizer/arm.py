@@ -243,10 +243,9 @@ def read_urdf(path: Path, key: str, problem_path: object) -> str:
     return sanitize_urdf(text, f"URDF file {path}", key, problem_path)
 
 
-def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
-    """Refuse declarations, check well-formedness, drop visual/collision elements."""
-    import xml.etree.ElementTree as ET
-
+def refuse_declarations(text: str, what: str, key: str, problem_path: object) -> None:
+    """Any document type or entity declaration in untrusted XML (URDF, MJCF) is refused
+    before a parser sees it (entity expansion, external entities)."""
     if DECLARATION.search(text):
         raise ProblemError(
             problem_path,
@@ -254,6 +253,13 @@ def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
             f"{what} has a <!DOCTYPE> or <!ENTITY> declaration; these are refused "
             "(entity expansion, external entities): remove it",
         )
+
+
+def sanitize_urdf(text: str, what: str, key: str, problem_path: object) -> str:
+    """Refuse declarations, check well-formedness, drop visual/collision elements."""
+    import xml.etree.ElementTree as ET
+
+    refuse_declarations(text, what, key, problem_path)
     try:
         root = ET.fromstring(text)
     except ET.ParseError as err:
@@ -319,11 +325,13 @@ def check_urdf_content(root: Any, what: str, key: str, problem_path: object) -> 
     inequality), origins and axes (three finite numbers, a non-zero axis), mimic joints,
     and anything but a tree of links (a link with two parents, a loop, several roots)."""
     try:
-        n_links = len(root.findall("link"))
-        if n_links > MAX_LINKS:
-            raise ValueError(f"has {n_links} links; an arm model here has at most {MAX_LINKS}")
+        link_elements = root.findall("link")
+        if len(link_elements) > MAX_LINKS:
+            raise ValueError(
+                f"has {len(link_elements)} links; an arm model here has at most {MAX_LINKS}"
+            )
         links = {}
-        for link in root.findall("link"):
+        for link in link_elements:
             name = link.get("name")
             if not name:
                 raise ValueError("a <link> has no name")

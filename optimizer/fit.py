@@ -186,7 +186,7 @@ def _parse_fast(rows: list[tuple[int, str]], idx: list[int], width: int) -> np.n
     """The columns ``idx`` of plain numeric CSV rows, all finite, by numpy's C reader; None
     when any row is not plain (quotes, blanks, missing or extra cells, words, non-finite
     numbers), so that the careful row-by-row reader can name the culprit."""
-    if not rows or any('"' in ln for _, ln in rows[:1]):
+    if not rows:
         return None
     import io
     import warnings
@@ -500,7 +500,7 @@ def fit_model(
         res = _time_residual(log, model)
     lo, hi = _bounds(log, model)
     starts = _starts(log, model, lo, hi)
-    total = total or len(starts) + REFINE_UNITS * min(REFINEMENTS, len(starts))
+    total = total or fit_work(log, [model])
     costs = []
     for k, st in enumerate(starts):
         costs.append(float(np.sum(res(st) ** 2)))

@@ -31,6 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .arm import MAX_LINKS, MAX_XML_DEPTH, refuse_declarations, sanitize_urdf, xml_depth
 from .exceptions import ProblemError
 
 #: Name of the URDF root link that stands for MJCF's world body.
@@ -183,18 +184,11 @@ def read_mjcf(path: Path, key: str, problem_path: object) -> tuple[str, list[str
     """Read an MJCF file as untrusted XML; return URDF text (checked as any URDF is) and
     warnings for what the conversion leaves out. Refusals name ``problem_path``, ``key``
     and the file."""
-    from .arm import DECLARATION, sanitize_urdf
     from .inputs import read_text
 
     text = read_text(path, "MJCF", ProblemError, key, problem_path)
     what = f"MJCF file {path}"
-    if DECLARATION.search(text):
-        raise ProblemError(
-            problem_path,
-            key,
-            f"{what} has a <!DOCTYPE> or <!ENTITY> declaration; these are "
-            "refused (entity expansion, external entities): remove it",
-        )
+    refuse_declarations(text, what, key, problem_path)
     urdf, warnings = mjcf_to_urdf(text, what, key, problem_path)
     return sanitize_urdf(urdf, what, key, problem_path), warnings
 
@@ -247,8 +241,6 @@ def _convert(text: str) -> tuple[str, list[str]]:
     for default in root.iter("default"):
         if default.find("joint") is not None:
             raise _RefusedError("<default> sets joint attributes; write them on each <joint>")
-    from .arm import MAX_LINKS, MAX_XML_DEPTH, xml_depth
-
     depth = xml_depth(root)
     if depth > MAX_XML_DEPTH:
         raise _RefusedError(f"elements nest {depth} deep; at most {MAX_XML_DEPTH} are read")
@@ -305,7 +297,7 @@ def _convert(text: str) -> tuple[str, list[str]]:
             R = _rotation(el, where, degrees, eulerseq)
             if el.find("freejoint") is not None:
                 raise _RefusedError(f"{where} has a <freejoint>: the arm's base is fixed")
-            joints = [j for j in el if j.tag in ("joint", "freejoint")]
+            joints = [j for j in el if j.tag == "joint"]
             if len(joints) > 1:
                 raise _RefusedError(f"{where} has {len(joints)} joints; give each its own body")
             inertial = _inertial(el, where, degrees, eulerseq)
@@ -387,9 +379,10 @@ def _joint(
 ) -> str:
     jname = j.get("name")
     where = f"joint '{jname}'" if jname else f"the joint of body '{child}'"
-    if j.tag == "freejoint" or j.get("type", "hinge") not in ("hinge", "slide"):
+    jtype = j.get("type", "hinge")
+    if jtype not in ("hinge", "slide"):
         raise _RefusedError(
-            f"{where} has type '{j.get('type', 'free')[:20]}'; only hinge and slide "
+            f"{where} has type '{jtype[:20]}'; only hinge and slide "
             "joints are supported (the base is fixed)"
         )
     if not jname:
@@ -422,7 +415,7 @@ def _joint(
                 f"problem file's [actuators.{jname}]"
             )
     axis = _floats(j, "axis", 3, where) or [0.0, 0.0, 1.0]
-    kind = "revolute" if j.get("type", "hinge") == "hinge" else "prismatic"
+    kind = "revolute" if jtype == "hinge" else "prismatic"
     limited = j.get("limited", "auto")
     if limited not in ("true", "false", "auto"):
         raise _RefusedError(f"{where} limited='{limited[:20]}' must be true, false or auto")

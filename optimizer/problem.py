@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from .actuators import ACTUATOR_MODELS, JointActuator, make_model
+from .actuators.base import ModelParameterError
 from .arm import Arm, PlantDeviation, read_urdf
 from .control import AXES, ControlSettings, clik_cached
 from .exceptions import ProblemError
@@ -674,9 +675,10 @@ def _read_actuator(
             raise t.fail(k, f"must be > 0, got {v:g}")
     try:
         model = make_model(kind, **params)
-    except ValueError as err:  # the model's message starts with the parameter's name
-        bad = next((k for k in keys if str(err).startswith(k)), keys[0])
-        raise t.fail(bad, str(err).removeprefix(f"{bad} ")) from err
+    except ModelParameterError as err:
+        raise t.fail(err.name, err.reason) from err
+    except ValueError as err:
+        raise t.fail(keys[0], str(err)) from err
     nyq = rate / 2.0
     if model.fastest_hz() >= nyq:
         raise t.fail(

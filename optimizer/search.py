@@ -889,25 +889,23 @@ def _run_jobs(
     study: optuna.Study,
     on_progress: Callable[[optuna.Study], None] | None,
 ) -> None:
-    try:
-        # Workers start with SIGINT blocked (the mask survives exec) until worker_start
-        # has installed their handler: a Ctrl-C while one imports stays pending instead
-        # of printing a traceback; here it is delivered as soon as they are spawned.
-        with _sigint_blocked():
-            futures = [pool.submit(run_worker, j) for j in jobs]
-        while not all(f.done() for f in futures):
-            if on_progress:
-                on_progress(study)
-            for f in futures:
-                try:
-                    f.result(timeout=1.0 / len(futures))
-                except TimeoutError:
-                    pass
+    """Run the jobs on ``pool`` (from ``worker_pool``, which stops the workers when an
+    exception or Ctrl-C leaves its block)."""
+    # Workers start with SIGINT blocked (the mask survives exec) until worker_start
+    # has installed their handler: a Ctrl-C while one imports stays pending instead
+    # of printing a traceback; here it is delivered as soon as they are spawned.
+    with _sigint_blocked():
+        futures = [pool.submit(run_worker, j) for j in jobs]
+    while not all(f.done() for f in futures):
+        if on_progress:
+            on_progress(study)
         for f in futures:
-            f.result()  # re-raise a worker's error
-    except KeyboardInterrupt:  # stop the workers too: each abandons its trial in flight
-        _stop_pool(pool)
-        raise
+            try:
+                f.result(timeout=1.0 / len(futures))
+            except TimeoutError:
+                pass
+    for f in futures:
+        f.result()  # re-raise a worker's error
 
 
 # -- ranking -----------------------------------------------------------------------

@@ -41,14 +41,24 @@ MAX_MODEL_HZ = 1e5
 MAX_DAMPING_RATIO = 100.0
 
 
+class ModelParameterError(ValueError):
+    """A model parameter that is not usable: ``name`` and ``reason`` kept apart, so that a
+    file reader can name the key it came from."""
+
+    def __init__(self, name: str, reason: str) -> None:
+        super().__init__(f"{name} {reason}")
+        self.name = name
+        self.reason = reason
+
+
 def check_positive_finite(value: float, name: str, most: float = math.inf) -> float:
-    """Return ``value`` as float, or raise ValueError saying why it is not usable: it
-    must be positive, finite and at most ``most``."""
+    """Return ``value`` as float, or raise ModelParameterError saying why it is not
+    usable: it must be positive, finite and at most ``most``."""
     v = float(value)
     if not math.isfinite(v) or v <= 0.0:
-        raise ValueError(f"{name} must be a positive finite number, got {value!r}")
+        raise ModelParameterError(name, f"must be a positive finite number, got {value!r}")
     if v > most:
-        raise ValueError(f"{name} must be at most {most:g}, got {value!r}")
+        raise ModelParameterError(name, f"must be at most {most:g}, got {value!r}")
     return v
 
 
