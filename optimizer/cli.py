@@ -202,12 +202,23 @@ def _parser() -> argparse.ArgumentParser:
         "re-scored on the robust objective",
     )
     up.add_argument("problem", type=Path, help="problem file (TOML)")
-    up.add_argument("--from", dest="from_dir", type=Path, required=True, metavar="RUN",
-                    help="results folder of a search: its ranked plans are the candidates")
-    up.add_argument("--factor", type=float, default=2.0,
-                    help="how much faster the upgraded drive is (default 2: twice the bandwidth)")
-    up.add_argument("--top", type=int, default=5,
-                    help="ranked plans of the run used as candidates (default 5)")
+    up.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        required=True,
+        metavar="RUN",
+        help="results folder of a search: its ranked plans are the candidates",
+    )
+    up.add_argument(
+        "--factor",
+        type=float,
+        default=2.0,
+        help="how much faster the upgraded drive is (default 2: twice the bandwidth)",
+    )
+    up.add_argument(
+        "--top", type=int, default=5, help="ranked plans of the run used as candidates (default 5)"
+    )
     up.add_argument("--json", type=Path, metavar="FILE", help="also write the table as JSON")
     ex = sub.add_parser(
         "export",
@@ -223,17 +234,38 @@ def _parser() -> argparse.ArgumentParser:
     )
     va.add_argument("problem", type=Path, help="problem file (TOML)")
     va.add_argument("--plan", type=Path, required=True, metavar="FILE", help="the plan that ran")
-    va.add_argument("--log", type=Path, required=True, metavar="CSV",
-                    help="the run in the rollout-log format (see 'score --rollouts')")
-    va.add_argument("--trajectory", required=True, metavar="NAME",
-                    help="the problem's trajectory the run followed")
-    va.add_argument("--write", type=Path, metavar="TOML",
-                    help="write the calibrated problem file here (comments kept)")
-    va.add_argument("--from", dest="from_dir", type=Path, metavar="RUN",
-                    help="re-score that run's ranked plans under the calibrated plant")
-    va.add_argument("--figure", type=Path, metavar="PNG",
-                    help="error spectra, measured against predicted (default "
-                    "results/validate/<log name>.png)")
+    va.add_argument(
+        "--log",
+        type=Path,
+        required=True,
+        metavar="CSV",
+        help="the run in the rollout-log format (see 'score --rollouts')",
+    )
+    va.add_argument(
+        "--trajectory",
+        required=True,
+        metavar="NAME",
+        help="the problem's trajectory the run followed",
+    )
+    va.add_argument(
+        "--write",
+        type=Path,
+        metavar="TOML",
+        help="write the calibrated problem file here (comments kept)",
+    )
+    va.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        metavar="RUN",
+        help="re-score that run's ranked plans under the calibrated plant",
+    )
+    va.add_argument(
+        "--figure",
+        type=Path,
+        metavar="PNG",
+        help="error spectra, measured against predicted (default results/validate/<log name>.png)",
+    )
     f = sub.add_parser(
         "fit",
         help="fit an actuator model (lag + delay) to a bench log: frequency response or "
@@ -461,8 +493,10 @@ def _check(args: argparse.Namespace) -> int:
     out.print(ladder_table(prob, rungs))
     plan = suggested_plan(prob, rungs)
     if plan is None:
-        out.print("[red]no stiffness holds the minimum margins even with every joint[/]: "
-                  "check the actuators, delays and [simulation] min_* margins")
+        out.print(
+            "[red]no stiffness holds the minimum margins even with every joint[/]: "
+            "check the actuators, delays and [simulation] min_* margins"
+        )
     else:
         out.print(
             f"suggested plan (one tier per rung that adds at least {MIN_GAIN_STEP:g}× "
@@ -503,8 +537,11 @@ def _score(args: argparse.Namespace) -> int:
     out = _console_for(prob)
     n = prob.arm.n
     jobs: list[tuple[str, str, Callable]] = [
-        (pl.label, pl.compact(n), functools.partial(_tiered_for, pl,
-                                                    kind="osc" if pl.is_single_tier(n) else "plan"))
+        (
+            pl.label,
+            pl.compact(n),
+            functools.partial(_tiered_for, pl, kind="osc" if pl.is_single_tier(n) else "plan"),
+        )
         for pl in plans
     ]
     if args.baselines:
@@ -512,8 +549,11 @@ def _score(args: argparse.Namespace) -> int:
         op = osc_plan(prob, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
         jobs.append((op.label, op.compact(n), functools.partial(_tiered_for, op, kind="osc")))
         jobs.append(
-            ("baseline: joint-space CLIK + PD", joint_gains_text(b.joint_kp, b.joint_zeta),
-             functools.partial(_joint_for, b.joint_kp, b.joint_zeta))
+            (
+                "baseline: joint-space CLIK + PD",
+                joint_gains_text(b.joint_kp, b.joint_zeta),
+                functools.partial(_joint_for, b.joint_kp, b.joint_zeta),
+            )
         )
     plants = plant_set(prob, n_plants)
     results = []
@@ -527,7 +567,12 @@ def _score(args: argparse.Namespace) -> int:
             kept.append([])
             results.append(
                 evaluate_robust(
-                    prob, plants, make, label, text, compute_margin=not args.no_margin,
+                    prob,
+                    plants,
+                    make,
+                    label,
+                    text,
+                    compute_margin=not args.no_margin,
                     keep_rollouts=kept[-1] if (args.figures or args.rollouts) else None,
                 )
             )
@@ -556,8 +601,11 @@ def _plants_line(prob, n: int, seed: int | None = None) -> str:  # type: ignore[
     """One line on how the perturbed plants were drawn."""
     sp = prob.perturb
     own = seed is None or seed == sp.seed
-    corner = "the first is the worst corner of the spreads, the others are " if (
-        sp.corner and own and n > 0) else ""
+    corner = (
+        "the first is the worst corner of the spreads, the others are "
+        if (sp.corner and own and n > 0)
+        else ""
+    )
     return (
         f"perturbed plants: {n}; {corner}drawn with seed {sp.seed if seed is None else seed} "
         f"(bandwidth ±{sp.bandwidth_rel:.0%}, 2nd-order damping ±{sp.damping_rel:.0%}, delay "
@@ -623,10 +671,11 @@ def _score_from(args: argparse.Namespace) -> int:
     diffs: list[list[str]] = []
     with out.status("re-simulating…") as status:
         for i, e in enumerate(run.ranking, start=1):
-            status.update(f"re-simulating rank {e.get('rank')} ({i}/{len(run.ranking)})…")
+            status.update(f"re-simulating rank {e.rank} ({i}/{len(run.ranking)})…")
             kept.append([])
             sc = rescore(
-                prob, rebuild(e, run, prob),
+                prob,
+                rebuild(e, run, prob),
                 kept[-1] if (args.figures or args.rollouts) else None,
                 compute_margin=not args.no_margin,
             )
@@ -641,8 +690,7 @@ def _score_from(args: argparse.Namespace) -> int:
             out.print(line)
     bad = [(e, d) for e, d in zip(run.ranking, diffs) if d]
     for e, d in bad:
-        out.print(f"[red]rank {e.get('rank')} {escape(str(e.get('label')))} differs:[/] "
-                  + escape("; ".join(d)))
+        out.print(f"[red]rank {e.rank} {escape(e.label)} differs:[/] " + escape("; ".join(d)))
     if args.no_margin:
         out.print("--no-margin: numbers shown, not checked against the run")
     elif not bad:
@@ -719,7 +767,7 @@ def _compare(args: argparse.Namespace) -> int:
         if note:
             print(f"tierplan: warning: {note}", file=sys.stderr)
         picked = [e for e in roles(run.ranking) if e is not None]
-        picked += [e for e in run.ranking if e.get("source") == "hand" and e not in picked]
+        picked += [e for e in run.ranking if e.source == "hand" and e not in picked]
         cands += [rebuild(e, run, prob) for e in picked]
     if args.baselines:
         b = prob.baseline
@@ -770,9 +818,13 @@ def _compare(args: argparse.Namespace) -> int:
     if args.figures:
         from .figures import margin_figure, plan_colors, robustness_figure, save
 
-        labels = [str(d["label"]) for d in dicts]
+        labels = [r.nominal.label for r in results]
+        margins = [
+            (r.nominal.stiffness_margin, r.nominal.delay_margin_ms, r.nominal.bandwidth_margin)
+            for r in results
+        ]
         files = [args.figures / "fig-margin.png"]
-        save(margin_figure(dicts, plan_colors(labels), prob.scoring.margins), files[0])
+        save(margin_figure(labels, margins, plan_colors(labels), prob.scoring.margins), files[0])
         if args.perturb:
             files.append(args.figures / "fig-robustness.png")
             save(robustness_figure(dicts), files[1])
@@ -870,21 +922,21 @@ def _run_and_show(out, prob, settings, seeded):  # type: ignore[no-untyped-def]
             progress.update(tasks[kind], completed=min(srch.finished(study), n), info=info)
 
         result = run_studies(prob, settings, seeded, on_progress=update)
-    out.print(ranking_table(result.ranked, result.osc, result.joint))
+    out.print(ranking_table(result.ranked))
     for e in result.ranked:
-        out.print(f"  {e['rank']}. {escape(e['label'])}: {escape(e['plan_text'])}")
+        out.print(f"  {e.rank}. {escape(e.label)}: {escape(e.plan_text)}")
     if len(settings.objectives) > 1:
-        front = [e for e in result.plan_entries if e.get("pareto")]
+        front = [e for e in result.plan_entries if e.pareto]
         out.print(
             f"two objectives (error, {settings.objectives[1]}): {len(front)} plans on the "
             "feasible Pareto front, all kept in the ranking (column 'Pareto'); the baselines "
             "are tuned for error alone."
         )
     for s, d in result.seeded_scores:
-        if s.source == "hand" and not d.get("feasible"):
+        if s.source == "hand" and not d.feasible:
             out.print(
                 f"[yellow]hand plan '{escape(s.plan.label)}' did not make the ranking: "
-                f"{escape(str(d.get('reason')))}[/]"
+                f"{escape(str(d.reason))}[/]"
             )
     from .runs import convergence_note
 
@@ -935,9 +987,7 @@ def _settings(args, prob, storage_default=None):  # type: ignore[no-untyped-def]
         return None
     trials, btrials, seed = budgets
     return RunSettings(
-        storage=args.storage
-        or storage_default
-        or str(default_storage(prob.name)),
+        storage=args.storage or storage_default or str(default_storage(prob.name)),
         study=args.study,
         trials=trials,
         baseline_trials=btrials,
@@ -1045,34 +1095,38 @@ def _swap(args: argparse.Namespace) -> int:
     ]
     out.print(swap_table(rows))
     old_best = seeded[0]
-    new_best = next((e for e in result.ranked if e["kind"] == "plan"), None)
+    new_best = next((e for e in result.ranked if e.kind == "plan"), None)
     moves: list[str] = []
     summary: dict = {"from": str(from_dir), "actuator_files": [str(a) for a in args.actuators]}
     before = old_best.extra.get("previous_error_index")
     if new_best is not None:
         moves = tier_moves(
-            tier_depth(old_best.plan.to_toml(), names), tier_depth(new_best["plan_toml"], names)
+            tier_depth(old_best.plan.to_toml(), names), tier_depth(new_best.plan_toml, names)
         )
         out.print(
             f"best plan before: {escape(old_best.plan.compact(prob.arm.n))} "
             f"(error idx {fmt(before)})"
         )
         out.print(
-            f"best plan now:    {escape(new_best['plan_text'])} "
-            f"(error idx {fmt(new_best['error_index'])}"
-            + (f", {(new_best['error_index'] / before - 1) * 100:+.0f} %" if before else "")
+            f"best plan now:    {escape(new_best.plan_text)} "
+            f"(error idx {fmt(new_best.error_index)}"
+            + (
+                f", {(new_best.error_index / before - 1) * 100:+.0f} %"
+                if before and new_best.error_index is not None
+                else ""
+            )
             + ")"
         )
         out.print("joints that moved between tiers: " + ("; ".join(moves) if moves else "none"))
         summary.update(
             best_before=before,
-            best_now=new_best["error_index"],
+            best_now=new_best.error_index,
             best_plan_before=old_best.plan.compact(prob.arm.n),
-            best_plan_now=new_best["plan_text"],
+            best_plan_now=new_best.plan_text,
             moved=moves,
         )
     summary["previous_plans"] = [
-        {"label": lab, "plan_text": txt, "error_index_before": b, "now": d}
+        {"label": lab, "plan_text": txt, "error_index_before": b, "now": d.to_dict()}
         for lab, txt, b, d in rows
     ]
     names_written = write_run(
@@ -1104,12 +1158,18 @@ def _sensitivity(args: argparse.Namespace) -> int:
     label, text, make = rebuild(best, run, prob)
     with out.status("stepping each plant parameter…") as status:
         base, rows = sensitivities(
-            prob, make, label,
+            prob,
+            make,
+            label,
             on_step=lambda i, n: status.update(f"stepping each plant parameter… {i}/{n}"),
         )
     out.print(sensitivity_table(base, rows, label))
-    doc = {"label": label, "plan_text": text, "error_index": base.error_index,
-           "rows": [r.to_dict() for r in rows]}
+    doc = {
+        "label": label,
+        "plan_text": text,
+        "error_index": base.error_index,
+        "rows": [r.to_dict() for r in rows],
+    }
     body = json.dumps(doc, indent=2) + "\n"
     f = write_extra(run.path, SENSITIVITY, body)
     if args.json:
@@ -1143,7 +1203,9 @@ def _upgrade(args: argparse.Namespace) -> int:
         raise InputError(args.from_dir, "", "holds no ranked plan (plans/rank-NN.toml)")
     with out.status("upgrading each drive in turn…") as status:
         rows = upgrade_advice(
-            prob, plans, args.factor,
+            prob,
+            plans,
+            args.factor,
             on_joint=lambda j: status.update(f"upgrading each drive in turn… {j}"),
         )
     out.print(upgrade_table(rows, args.factor))
@@ -1180,16 +1242,27 @@ def _validate(args: argparse.Namespace) -> int:
     plan = load_plan(args.plan, prob.arm.joint_names)
     names = [r.name for r in prob.references]
     if args.trajectory not in names:
-        raise InputError(args.problem, "trajectory", f"no trajectory named "
-                         f"'{printable(args.trajectory)[:40]}'; the problem has {', '.join(names)}")
+        raise InputError(
+            args.problem,
+            "trajectory",
+            f"no trajectory named "
+            f"'{printable(args.trajectory)[:40]}'; the problem has {', '.join(names)}",
+        )
     ref = prob.references[names.index(args.trajectory)]
     log = read_run_log(args.log, prob.arm.joint_names)
     if abs(log.dt - prob.dt) > 1e-6 * prob.dt:
-        raise InputError(args.log, "time_s", f"samples every {log.dt * 1e3:g} ms; the problem's "
-                         f"control period is {prob.dt * 1e3:g} ms")
+        raise InputError(
+            args.log,
+            "time_s",
+            f"samples every {log.dt * 1e3:g} ms; the problem's "
+            f"control period is {prob.dt * 1e3:g} ms",
+        )
     if log.t[-1] + 0.5 * prob.dt < ref.t[-1]:
-        raise InputError(args.log, "rows", f"the log ends at {log.t[-1]:g} s, before the "
-                         f"trajectory ({ref.t[-1]:g} s)")
+        raise InputError(
+            args.log,
+            "rows",
+            f"the log ends at {log.t[-1]:g} s, before the trajectory ({ref.t[-1]:g} s)",
+        )
     out = _console_for(prob)
 
     def replay(p):  # type: ignore[no-untyped-def]
@@ -1214,9 +1287,11 @@ def _validate(args: argparse.Namespace) -> int:
     t = Table(title=f"'{escape(args.trajectory)}': measured against predicted tip error")
     for col in ("", "pos RMS mm", "pos max mm", "rot RMS deg", "rot max deg"):
         t.add_column(col, justify="left" if not col else "right")
-    for label, a, b in (("measured (log)", m_p, m_r), ("predicted, problem as given",
-                        p_p[settle:], p_r[settle:]), ("predicted, calibrated plant",
-                        c_p[settle:], c_r[settle:])):
+    for label, a, b in (
+        ("measured (log)", m_p, m_r),
+        ("predicted, problem as given", p_p[settle:], p_r[settle:]),
+        ("predicted, calibrated plant", c_p[settle:], c_r[settle:]),
+    ):
         t.add_row(label, fmt(rms(a)), fmt(float(np.max(a))), fmt(rms(b)), fmt(float(np.max(b))))
     out.print(t)
     ct = Table(title="calibrated plant deviation (± 1σ from the fit)")
@@ -1251,8 +1326,9 @@ def _validate(args: argparse.Namespace) -> int:
         rows = []
         for s in previous_plans(args.from_dir, calibrated, 10):
             d = score_robust(calibrated, s.plan)
-            rows.append((s.plan.label, s.plan.compact(prob.arm.n),
-                         s.extra.get("previous_error_index"), d))
+            rows.append(
+                (s.plan.label, s.plan.compact(prob.arm.n), s.extra.get("previous_error_index"), d)
+            )
         out.print(swap_table(rows))
     out.print(f"[yellow]caution:[/] {SAFETY_SHORT}")
     return EXIT_OK
@@ -1266,8 +1342,10 @@ def _write_calibration(args, prob, cal) -> None:  # type: ignore[no-untyped-def]
     from .actuator_file import write_calibrated
     from .problem import load_problem
 
-    plant = {"payload_kg": round(cal.payload_kg, 4),
-             "payload_offset_m": [round(x, 4) for x in cal.payload_offset_m]}
+    plant = {
+        "payload_kg": round(cal.payload_kg, 4),
+        "payload_offset_m": [round(x, 4) for x in cal.payload_offset_m],
+    }
     joints = {}
     ms = prob.dt * 1e3
     for j, a in enumerate(prob.actuators):
@@ -1282,10 +1360,18 @@ def _write_calibration(args, prob, cal) -> None:  # type: ignore[no-untyped-def]
         if not all(math.isfinite(float(x)) for x in vals.values() if isinstance(x, float)):
             continue
         joints[a.joint] = vals
-    note = (f"calibrated from {args.log.name} on {datetime.date.today().isoformat()} by "
-            "tierplan validate (simulation model; check before use)")
-    write_calibrated(prob.path, args.write, plant, joints, note,
-                     validate=lambda p: load_problem(p, check_reach=False))
+    note = (
+        f"calibrated from {args.log.name} on {datetime.date.today().isoformat()} by "
+        "tierplan validate (simulation model; check before use)"
+    )
+    write_calibrated(
+        prob.path,
+        args.write,
+        plant,
+        joints,
+        note,
+        validate=lambda p: load_problem(p, check_reach=False),
+    )
 
 
 def _export(args: argparse.Namespace) -> int:
@@ -1325,8 +1411,10 @@ def _fit(args: argparse.Namespace) -> int:
         print("tierplan: error: --write needs --joint NAME (the table to update)", file=sys.stderr)
         return EXIT_INPUT
     if not (args.phase_at > 0 and args.phase_at < float("inf")):
-        print(f"tierplan: error: --phase-at must be a finite frequency > 0 Hz, got "
-              f"{args.phase_at}", file=sys.stderr)
+        print(
+            f"tierplan: error: --phase-at must be a finite frequency > 0 Hz, got {args.phase_at}",
+            file=sys.stderr,
+        )
         return EXIT_INPUT
     to_stdout = args.json is not None and str(args.json) == "-"
     out = console(stderr=to_stdout)

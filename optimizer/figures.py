@@ -61,8 +61,9 @@ def fit_figure(log: Log, fit: ActuatorFit, title: str = "") -> Figure:
         ax[0, 0].semilogx(log.f_hz, log.mag_db, "o", ms=3, color=DATA, label="measured")
         ax[0, 0].semilogx(f, mag, color=BEST, label=f"fit: {fit.actuator().describe()}")
         ax[0, 0].axhline(-3.01, color=JOINT, ls=":", lw=1, label="−3 dB")
-        ax[0, 0].axvline(fit.bandwidth_hz, color=OSC, ls="--", lw=1,
-                         label=f"bandwidth {fit.bandwidth_hz:.3g} Hz")
+        ax[0, 0].axvline(
+            fit.bandwidth_hz, color=OSC, ls="--", lw=1, label=f"bandwidth {fit.bandwidth_hz:.3g} Hz"
+        )
         ax[0, 0].set_ylabel("magnitude [dB]")
         ax[1, 0].semilogx(log.f_hz, log.phase_deg, "o", ms=3, color=DATA, label="measured")
         ax[1, 0].semilogx(f, ph, color=BEST, label=f"fit, delay {fit.delay_ms:.3g} ms")
@@ -79,8 +80,14 @@ def fit_figure(log: Log, fit: ActuatorFit, title: str = "") -> Figure:
         y = simulate_time(fit.model, lag, fit.delay_ms * 1e-3, log.h, log.commanded)
         ax[0, 0].plot(log.t, log.commanded, color=JOINT, lw=1, label="commanded")
         ax[0, 0].plot(log.t, log.measured, color=DATA, lw=1, label="measured")
-        ax[0, 0].plot(log.t, y, color=BEST, lw=1.5, ls="--",
-                      label=f"fit: {fit.actuator().describe()}, delay {fit.delay_ms:.3g} ms")
+        ax[0, 0].plot(
+            log.t,
+            y,
+            color=BEST,
+            lw=1.5,
+            ls="--",
+            label=f"fit: {fit.actuator().describe()}, delay {fit.delay_ms:.3g} ms",
+        )
         ax[0, 0].set_ylabel("torque [N·m]")
         ax[0, 0].legend(fontsize=8)
         ax[1, 0].plot(log.t, log.measured - y, color=OSC, lw=1, label="measured − fit")
@@ -107,10 +114,12 @@ def error_figure(
             if ro is None:
                 continue
             c = colors.get(label)
-            ax[r, 0].plot(ro.t, 1e3 * np.linalg.norm(ro.e[:, :3], axis=1), color=c, lw=1,
-                          label=label)
-            ax[r, 1].plot(ro.t, np.rad2deg(np.linalg.norm(ro.e[:, 3:], axis=1)), color=c, lw=1,
-                          label=label)
+            ax[r, 0].plot(
+                ro.t, 1e3 * np.linalg.norm(ro.e[:, :3], axis=1), color=c, lw=1, label=label
+            )
+            ax[r, 1].plot(
+                ro.t, np.rad2deg(np.linalg.norm(ro.e[:, 3:], axis=1)), color=c, lw=1, label=label
+            )
         ax[r, 0].set_title(f"{name}: position error", fontsize=9)
         ax[r, 1].set_title(f"{name}: orientation error", fontsize=9)
         ax[r, 0].set_ylabel("|position error| [mm]")
@@ -136,21 +145,38 @@ def torque_figure(
     for j, name in enumerate(joint_names):
         a = ax[j, 0]
         for k in range(n_tiers):
-            a.plot(ro.t, ro.tier_tau[:, k, j], color=TIER_COLORS[k % len(TIER_COLORS)], lw=0.9,
-                   label=f"tier {k + 1}")
-        a.plot(ro.t, ro.tau_cmd[:, j], color=DATA, lw=1.2,
-               label="command (tiers + model terms, limited)")
+            a.plot(
+                ro.t,
+                ro.tier_tau[:, k, j],
+                color=TIER_COLORS[k % len(TIER_COLORS)],
+                lw=0.9,
+                label=f"tier {k + 1}",
+            )
+        a.plot(
+            ro.t,
+            ro.tau_cmd[:, j],
+            color=DATA,
+            lw=1.2,
+            label="command (tiers + model terms, limited)",
+        )
         lim = float(limits[j])
         peak = float(max(np.abs(ro.tau_cmd[:, j]).max(), np.abs(ro.tier_tau[:, :, j]).max()))
         top = max(1.25 * peak, 1e-9)
         if math.isfinite(lim) and lim <= top:
             for s in (1.0, -1.0):
-                a.axhline(s * lim, color=OSC, ls="--", lw=0.8,
-                          label="effort limit" if s > 0 else None)
+                a.axhline(
+                    s * lim, color=OSC, ls="--", lw=0.8, label="effort limit" if s > 0 else None
+                )
             top = 1.1 * lim
         a.set_ylim(-top, top)
-        a.text(0.005, 0.04, f"limit ±{lim:.4g} N·m; peak {peak:.3g} N·m ({peak / lim:.0%})",
-               transform=a.transAxes, fontsize=7, color=OSC)
+        a.text(
+            0.005,
+            0.04,
+            f"limit ±{lim:.4g} N·m; peak {peak:.3g} N·m ({peak / lim:.0%})",
+            transform=a.transAxes,
+            fontsize=7,
+            color=OSC,
+        )
         a.set_ylabel(f"{name}\n[N·m]", fontsize=8)
         a.grid(True, alpha=0.3)
     ax[-1, 0].set_xlabel("time [s]")
@@ -190,8 +216,13 @@ def spectrum_figure(
             a.loglog(f[1:], P[1:, j], color=colors.get(label), lw=1, label=label)
     for j, name in enumerate(joint_names):
         a = ax[j // cols, j % cols]
-        a.axvline(bandwidths_hz[j], color=DATA, ls="--", lw=0.9,
-                  label=f"bandwidth {bandwidths_hz[j]:.3g} Hz")
+        a.axvline(
+            bandwidths_hz[j],
+            color=DATA,
+            ls="--",
+            lw=0.9,
+            label=f"bandwidth {bandwidths_hz[j]:.3g} Hz",
+        )
         a.set_title(name, fontsize=9)
         a.set_xlabel("frequency [Hz]")
         a.set_ylabel("PSD [(N·m)²/Hz]")
@@ -248,11 +279,17 @@ def pareto_figure(
     direction = SECOND_OBJECTIVES[second][0] if second in SECOND_OBJECTIVES else "minimize"
     if pts:
         front = pareto_front([(p[0], p[1]) for p in pts], ["minimize", direction])
-        a.plot([p[0] for p in pts], [p[1] for p in pts], "o", ms=4, color=JOINT, alpha=0.6,
-               label="feasible trials")
+        a.plot(
+            [p[0] for p in pts],
+            [p[1] for p in pts],
+            "o",
+            ms=4,
+            color=JOINT,
+            alpha=0.6,
+            label="feasible trials",
+        )
         fp = sorted((p for p, on in zip(pts, front) if on), key=lambda p: p[0])
-        a.plot([p[0] for p in fp], [p[1] for p in fp], "o-", ms=5, color=BEST,
-               label="Pareto front")
+        a.plot([p[0] for p in fp], [p[1] for p in fp], "o-", ms=5, color=BEST, label="Pareto front")
         pick = next((p for p in pts if p[2] == chosen_trial), None)
         if pick:
             a.plot([pick[0]], [pick[1]], "*", ms=14, color=OSC, label=f"chosen (trial {pick[2]})")
@@ -263,21 +300,27 @@ def pareto_figure(
 
 
 def margin_figure(
-    entries: Sequence[Mapping[str, Any]], colors: Mapping[str, str], limits: Any
+    labels: Sequence[str],
+    margins: Sequence[tuple[float | None, float | None, float | None]],
+    colors: Mapping[str, str],
+    limits: Any,
 ) -> Figure:
-    """Stiffness, delay and bandwidth margins of each entry (horizontal bars, one panel
-    each), the problem's minimums dashed (``limits``: a ``MarginLimits``)."""
-    fig, ax = _new(1, 3, 12.0, 0.35 * len(entries) + 1.8, sharey=True)
-    labels = [str(e["label"]) for e in entries]
-    y = np.arange(len(entries))[::-1]
+    """Stiffness, delay [ms] and bandwidth margins (``margins``, one triple per label;
+    None: not computed) as horizontal bars, one panel each, the problem's minimums dashed
+    (``limits``: a ``MarginLimits``)."""
+    fig, ax = _new(1, 3, 12.0, 0.35 * len(labels) + 1.8, sharey=True)
+    y = np.arange(len(labels))[::-1]
     panels = (
-        ("stiffness_margin", limits.stiffness, "stiffness margin [×], ζ held", "×"),
-        ("delay_margin_ms", limits.delay_ms, "delay margin [ms]", " ms"),
-        ("bandwidth_margin", limits.bandwidth, "bandwidth margin [×]", "×"),
+        (limits.stiffness, "stiffness margin [×], ζ held", "×"),
+        (limits.delay_ms, "delay margin [ms]", " ms"),
+        (limits.bandwidth, "bandwidth margin [×]", "×"),
     )
-    for i, (key, low, xlabel, unit) in enumerate(panels):
+    for i, (low, xlabel, unit) in enumerate(panels):
         a = ax[0, i]
-        vals = [float(e[key]) if e.get(key) is not None else 0.0 for e in entries]
+        vals = [
+            0.0 if m[i] is None or not math.isfinite(m[i]) else float(m[i])  # type: ignore[arg-type]
+            for m in margins
+        ]
         a.barh(y, vals, color=[colors.get(lb, JOINT) for lb in labels])
         a.axvline(low, color=DATA, ls="--", lw=1, label=f"minimum {low:g}{unit}")
         if i == 0:
@@ -339,8 +382,10 @@ def robustness_figure(results: Sequence[Mapping[str, Any]]) -> Figure:
     ]
     top = max(finite, default=1.0) * 1.15
     first_plan = next((str(r["label"]) for r in results if r.get("kind") == "plan"), None)
-    role = {str(r["label"]): {"osc": "osc", "joint_space": "joint"}.get(str(r.get("kind")), "")
-            for r in results}
+    role = {
+        str(r["label"]): {"osc": "osc", "joint_space": "joint"}.get(str(r.get("kind")), "")
+        for r in results
+    }
     if first_plan:
         role[first_plan] = "best"
     colors = plan_colors(labels, role)
@@ -348,18 +393,45 @@ def robustness_figure(results: Sequence[Mapping[str, Any]]) -> Figure:
         y = len(results) - 1 - i
         ok = [float(d["error_index"]) for d in r.get("draws", []) if d.get("feasible")]
         bad = sum(1 for d in r.get("draws", []) if not d.get("feasible"))
-        a.plot(ok, [y] * len(ok), "o", ms=4, alpha=0.6, color=colors[labels[i]],
-               label="feasible plant" if i == 0 else None)
+        a.plot(
+            ok,
+            [y] * len(ok),
+            "o",
+            ms=4,
+            alpha=0.6,
+            color=colors[labels[i]],
+            label="feasible plant" if i == 0 else None,
+        )
         if bad:
-            a.annotate(f"{bad} infeasible", (top, y), xytext=(-6, 6), textcoords="offset points",
-                       ha="right", fontsize=7, color=OSC)
-            a.plot([top] * bad, [y] * bad, "x", ms=6, color=OSC,
-                   label="infeasible plant" if not any(
-                       not d.get("feasible") for q in results[:i] for d in q.get("draws", [])
-                   ) else None)
+            a.annotate(
+                f"{bad} infeasible",
+                (top, y),
+                xytext=(-6, 6),
+                textcoords="offset points",
+                ha="right",
+                fontsize=7,
+                color=OSC,
+            )
+            a.plot(
+                [top] * bad,
+                [y] * bad,
+                "x",
+                ms=6,
+                color=OSC,
+                label="infeasible plant"
+                if not any(not d.get("feasible") for q in results[:i] for d in q.get("draws", []))
+                else None,
+            )
         if r.get("error_index") is not None:
-            a.plot([float(r["error_index"])], [y], "|", ms=16, mew=2, color=DATA,
-                   label="nominal plant" if i == 0 else None)
+            a.plot(
+                [float(r["error_index"])],
+                [y],
+                "|",
+                ms=16,
+                mew=2,
+                color=DATA,
+                label="nominal plant" if i == 0 else None,
+            )
     a.set_yticks(np.arange(len(results))[::-1], labels, fontsize=8)
     return _finish(fig, a, "error index [-]", "entry", "error on perturbed plants", axis="x")
 
@@ -371,16 +443,23 @@ def tornado_figure(doc: Mapping[str, Any], top: int = 14) -> Figure:
     fig, ax = _new(1, 1, 8.0, 0.32 * len(rows) + 1.8)
     a = ax[0, 0]
     y = np.arange(len(rows))[::-1]
-    vals = [100.0 * float(r["error_change"]) if r.get("error_change") is not None else 0.0
-            for r in rows]
+    vals = [
+        100.0 * float(r["error_change"]) if r.get("error_change") is not None else 0.0 for r in rows
+    ]
     colors = [BEST if r.get("feasible") else OSC for r in rows]
     a.barh(y, vals, color=colors)
     a.set_yticks(y, [f"{r['parameter']} ({r['step']})" for r in rows], fontsize=8)
     a.axvline(0.0, color=DATA, lw=1)
     for yi, r in zip(y, rows):
         if not r.get("feasible"):
-            a.annotate("fails", (0.0, yi), xytext=(4, -3), textcoords="offset points",
-                       fontsize=7, color=OSC)
+            a.annotate(
+                "fails",
+                (0.0, yi),
+                xytext=(4, -3),
+                textcoords="offset points",
+                fontsize=7,
+                color=OSC,
+            )
     a.set_xlabel("change of the error index [%]")
     a.grid(True, axis="x", alpha=0.3)
     a.set_title(f"sensitivity of {doc.get('label')}")
@@ -393,13 +472,16 @@ def upgrade_figure(rows: Sequence[Mapping[str, Any]]) -> Figure:
     fig, ax = _new(1, 1, 8.0, 0.35 * len(rows) + 1.8)
     a = ax[0, 0]
     y = np.arange(len(rows))[::-1]
-    vals = [100.0 * float(r["improvement"]) if r.get("improvement") is not None else 0.0
-            for r in rows]
+    vals = [
+        100.0 * float(r["improvement"]) if r.get("improvement") is not None else 0.0 for r in rows
+    ]
     a.barh(y, vals, color=BEST)
     a.set_yticks(
         y,
-        [f"{r['joint']} ({r['bandwidth_hz']:.3g} → {r['upgraded_bandwidth_hz']:.3g} Hz)"
-         for r in rows],
+        [
+            f"{r['joint']} ({r['bandwidth_hz']:.3g} → {r['upgraded_bandwidth_hz']:.3g} Hz)"
+            for r in rows
+        ],
         fontsize=8,
     )
     a.axvline(0.0, color=DATA, lw=1)
@@ -419,8 +501,11 @@ def validation_figure(
 
     fig, ax = _new(1, 2, 11.0, 3.6)
     t = np.arange(len(measured)) * dt
-    for series, label, color in ((measured, "measured", DATA), (predicted, "predicted", OSC),
-                                 (calibrated, "calibrated", BEST)):
+    for series, label, color in (
+        (measured, "measured", DATA),
+        (predicted, "predicted", OSC),
+        (calibrated, "calibrated", BEST),
+    ):
         k = min(len(series), len(t))
         ax[0, 0].plot(t[:k], series[:k], color=color, lw=1, label=label)
         f, P = welch(series - np.mean(series), fs=1.0 / dt, nperseg=min(256, len(series)))

@@ -13,6 +13,7 @@ from rich.table import Table
 
 from .evaluate import Score
 from .problem import Problem
+from .ranking import Entry
 from .robust import RobustScore
 
 SAFETY_SHORT = (
@@ -131,18 +132,22 @@ def margin_text(x: float | None, cap: float, digits: int = 2) -> str:
 
 
 def margin_cells(d: object) -> list[str]:
-    """Stiffness ×, delay ms, bandwidth × of a Score, TrajectoryScore margins or dict."""
+    """Stiffness ×, delay ms, bandwidth × of a Score, an Entry or anything with those
+    attributes (a delay cap when it has one)."""
+    return margin_texts(
+        d.stiffness_margin,
+        d.delay_margin_ms,
+        d.bandwidth_margin,  # type: ignore[attr-defined]
+        getattr(d, "delay_cap_ms", None),
+    )
+
+
+def margin_texts(
+    st: float | None, de: float | None, bw: float | None, cap_ms: float | None = None
+) -> list[str]:
+    """Stiffness ×, delay ms (up to the delay cap), bandwidth × as table cells."""
     from .stability import BANDWIDTH_CAP, STIFFNESS_CAP
 
-    if isinstance(d, dict):
-        st, de, bw, cap_ms = (
-            d.get("stiffness_margin"), d.get("delay_margin_ms"), d.get("bandwidth_margin"),
-            d.get("delay_cap_ms"),
-        )
-    else:
-        st, de, bw = (getattr(d, k) for k in ("stiffness_margin", "delay_margin_ms",
-                                              "bandwidth_margin"))
-        cap_ms = getattr(d, "delay_cap_ms", None)
     return [
         margin_text(st, STIFFNESS_CAP),
         margin_text(de, cap_ms if cap_ms else math.inf),
@@ -211,13 +216,8 @@ def score_table(scores: Sequence[Score], reference: Score | None = None) -> Tabl
                 fmt(m.rot_max_deg),
                 fmt(m.tau_rms_nm),
                 fmt(m.peak_torque_ratio),
-                *margin_cells(
-                    {
-                        "stiffness_margin": tr.margins.stiffness,
-                        "delay_margin_ms": tr.margins.delay_ms,
-                        "bandwidth_margin": tr.margins.bandwidth,
-                        "delay_cap_ms": s.delay_cap_ms,
-                    }
+                *margin_texts(
+                    tr.margins.stiffness, tr.margins.delay_ms, tr.margins.bandwidth, s.delay_cap_ms
                 ),
                 fmt(tr.error_index),
                 "",
@@ -234,8 +234,17 @@ def robust_table(
     mean error over all plants, the robust error and its change against ``reference``."""
     n = max((r.plants for r in results), default=0)
     t = Table(title=title or f"robustness: the nominal plant and {n} perturbed plants")
-    cols = ("entry", "plants ok", "p90 err", "worst err", "mean err", "nominal err",
-            "robust err", "vs OSC", "feasible")
+    cols = (
+        "entry",
+        "plants ok",
+        "p90 err",
+        "worst err",
+        "mean err",
+        "nominal err",
+        "robust err",
+        "vs OSC",
+        "feasible",
+    )
     for c in cols:
         t.add_column(c, justify="left" if c in ("entry", "feasible") else "right")
     for r in results:
@@ -290,10 +299,10 @@ def change(value: float | None, ref: float | None) -> str:
     return f"{(value / ref - 1.0) * 100:+.0f} %"
 
 
-def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) -> Table:
+def ranking_table(ranked: Sequence[Entry]) -> Table:
     """The ranked search result: plans, hand plans and tuned baselines together."""
     t = Table(title="ranking (feasible candidates; lower robust error is better)")
-    front = any("pareto" in e for e in ranked)
+    front = any(e.pareto is not None for e in ranked)
     cols = (
         "rank",
         "entry",
@@ -312,23 +321,23 @@ def ranking_table(ranked: Sequence[dict], osc: dict | None, joint: dict | None) 
     for c in cols:
         t.add_column(c, justify="left" if c == "entry" else "right")
     for e in ranked:
-        style = "bold" if e["kind"] != "plan" or e.get("source") == "hand" else ""
-        plants = e.get("plants") or 0
+        style = "bold" if e.kind != "plan" or e.source == "hand" else ""
+        plants = e.plants or 0
         t.add_row(
-            str(e["rank"]),
-            escape(f"{e['label']} [{e.get('source', '')}]"),
-            str(e["tiers"]),
-            f"{e.get('plants_feasible', 0)}/{plants}" if plants else "–",
-            fmt(e.get("p90_error")),
-            fmt(e.get("worst_error")),
-            fmt(e["error_index"]),
-            fmt(e["pos_rms_mm"]),
-            fmt(e["rot_rms_deg"]),
+            str(e.rank),
+            escape(f"{e.label} [{e.source or ''}]"),
+            str(e.tiers),
+            f"{e.plants_feasible or 0}/{plants}" if plants else "–",
+            fmt(e.p90_error),
+            fmt(e.worst_error),
+            fmt(e.error_index),
+            fmt(e.pos_rms_mm),
+            fmt(e.rot_rms_deg),
             *margin_cells(e),
-            fmt(e["peak_torque_ratio"]),
-            percent(e.get("vs_tuned_osc")),
-            percent(e.get("vs_tuned_joint")),
-            *(("yes" if e.get("pareto") else "",) if front else ()),
+            fmt(e.peak_torque_ratio),
+            percent(e.vs_tuned_osc),
+            percent(e.vs_tuned_joint),
+            *(("yes" if e.pareto else "",) if front else ()),
             style=style,
         )
     return t
@@ -339,23 +348,29 @@ def percent(x: float | None) -> str:
     return "–" if x is None or not math.isfinite(x) else f"{x * 100:+.0f} %"
 
 
-def swap_table(rows: Sequence[tuple[str, str, float | None, dict]]) -> Table:
+def swap_table(rows: Sequence[tuple[str, str, float | None, Entry]]) -> Table:
     """A previous run's plans re-scored after a swap: (label, plan text, old error, new score)."""
     t = Table(title="previous plans under the new actuators")
     from .stability import STIFFNESS_CAP
 
-    for c in ("entry", "error idx before", "error idx now", "change", "stiff × now",
-              "feasible now"):
+    for c in (
+        "entry",
+        "error idx before",
+        "error idx now",
+        "change",
+        "stiff × now",
+        "feasible now",
+    ):
         t.add_column(c, justify="left" if c == "entry" else "right")
     for label, _text, before, d in rows:
-        now = d.get("error_index") if d.get("feasible") else None
+        now = d.error_index if d.feasible else None
         t.add_row(
             escape(label),
             fmt(before),
             fmt(now),
             change(now, before),
-            margin_text(d.get("stiffness_margin"), STIFFNESS_CAP),
-            "yes" if d.get("feasible") else escape(f"no: {d.get('reason') or '?'}"),
+            margin_text(d.stiffness_margin, STIFFNESS_CAP),
+            "yes" if d.feasible else escape(f"no: {d.reason or '?'}"),
         )
     return t
 
@@ -375,8 +390,7 @@ def robustness_table(results: Sequence[RobustScore], n: int) -> Table:
     t = Table(
         title="side by side" + (f" on the nominal plant and {n} perturbed plants" if n else "")
     )
-    cols = ["entry", "tiers", "pos RMS mm", "rot RMS deg", *MARGIN_COLS, "nominal err",
-            "feasible"]
+    cols = ["entry", "tiers", "pos RMS mm", "rot RMS deg", *MARGIN_COLS, "nominal err", "feasible"]
     if n:
         cols[2:2] = ["plants ok", "p90 err", "worst err", "mean err"]
     for c in cols:
@@ -412,8 +426,12 @@ def sensitivity_table(base: Score, rows: Sequence, label: str) -> Table:
         t.add_column(c, justify="left" if c in ("parameter", "step") else "right")
     for r in rows:
         t.add_row(
-            escape(r.parameter), escape(r.step), fmt(r.error_index), percent(r.error_change),
-            *margin_cells(r), "yes" if r.feasible else "[red]no[/]",
+            escape(r.parameter),
+            escape(r.step),
+            fmt(r.error_index),
+            percent(r.error_change),
+            *margin_cells(r),
+            "yes" if r.feasible else "[red]no[/]",
         )
     return t
 
@@ -421,13 +439,23 @@ def sensitivity_table(base: Score, rows: Sequence, label: str) -> Table:
 def upgrade_table(rows: Sequence, factor: float) -> Table:
     """One row per joint (``advice.Upgrade``), best improvement first."""
     t = Table(title=f"each drive {factor:g}× faster in turn: best robust error of the candidates")
-    for c in ("joint", "BW Hz now", "BW Hz upgraded", "error now", "error upgraded",
-              "improvement", "tiers now → upgraded"):
+    for c in (
+        "joint",
+        "BW Hz now",
+        "BW Hz upgraded",
+        "error now",
+        "error upgraded",
+        "improvement",
+        "tiers now → upgraded",
+    ):
         t.add_column(c, justify="left" if c == "joint" else "right")
     for r in rows:
         t.add_row(
-            escape(r.joint), fmt(r.bandwidth_hz), fmt(r.upgraded_bandwidth_hz),
-            fmt(r.error_now), fmt(r.error_upgraded),
+            escape(r.joint),
+            fmt(r.bandwidth_hz),
+            fmt(r.upgraded_bandwidth_hz),
+            fmt(r.error_now),
+            fmt(r.error_upgraded),
             "–" if not math.isfinite(r.improvement) else f"{r.improvement:.0%}",
             f"{r.tiers_now} → {r.tiers_upgraded}",
         )

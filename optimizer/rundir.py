@@ -27,6 +27,7 @@ from typing import Any
 
 from .exceptions import InputError, printable
 from .outputs import csv_text, write_atomic
+from .ranking import Entry, EntryError
 
 __all__ = [
     "BEST_PLAN",
@@ -130,7 +131,7 @@ class RunFolder:
     """The run folder."""
     record: dict[str, Any]
     """run.json."""
-    ranking: list[dict[str, Any]]
+    ranking: list[Entry]
     """ranking.json entries, best first."""
     trials: list[dict[str, str]]
     """trials.csv rows."""
@@ -173,17 +174,25 @@ def read_record(run_dir: Path) -> dict[str, Any]:
 
 def read_ranking(
     run_dir: Path, missing: str = "not found: give a search's results folder"
-) -> list[dict[str, Any]]:
-    """ranking.json's entries, best first; labels and plan texts made printable."""
+) -> list[Entry]:
+    """ranking.json's entries, best first; labels and plan texts made printable. A field
+    of the wrong type is an InputError naming the entry and the field."""
     f = Path(run_dir) / RANKING_JSON
     ranking = read_json(f, missing)
     if not isinstance(ranking, list) or not all(isinstance(e, dict) for e in ranking):
         raise InputError(f, "", "must hold a list of ranked entries")
-    for e in ranking:  # labels and plan texts reach the terminal and the report
-        for k in ("label", "plan_text", "source"):
-            if isinstance(e.get(k), str):
-                e[k] = printable(e[k], 300)
-    return ranking
+    out = []
+    for i, d in enumerate(ranking):
+        try:
+            e = Entry.from_dict(d)
+        except EntryError as err:
+            raise InputError(f, f"[{i}].{err.key}", err.reason) from None
+        # labels and plan texts reach the terminal and the report
+        e.label, e.plan_text = printable(e.label, 300), printable(e.plan_text, 300)
+        if e.source is not None:
+            e.source = printable(e.source, 300)
+        out.append(e)
+    return out
 
 
 def _read_extra(run_dir: Path, name: str) -> Any:
@@ -219,61 +228,66 @@ def read_run(path: Path) -> RunFolder:
         if not isinstance(rob, list) or not all(isinstance(r, dict) for r in rob):
             raise InputError(path / ROBUSTNESS, "entries", "must be a list of entries")
     return RunFolder(
-        path, record, ranking, trials, rob, seed,
-        _read_extra(path, SENSITIVITY), _read_extra(path, UPGRADE),
+        path,
+        record,
+        ranking,
+        trials,
+        rob,
+        seed,
+        _read_extra(path, SENSITIVITY),
+        _read_extra(path, UPGRADE),
     )
 
 
 def ranked_plan_paths(
-    run_dir: Path, ranking: Sequence[dict[str, Any]], kinds: Sequence[str] = ("plan",)
-) -> list[tuple[dict[str, Any], Path]]:
+    run_dir: Path, ranking: Sequence[Entry], kinds: Sequence[str] = ("plan",)
+) -> list[tuple[Entry, Path]]:
     """The ranked entries of the given kinds that have a plan file, with the file, best
     first. A run from before ``plans/`` gives its best-plan.toml as rank 1."""
     out = []
     for e in ranking:
-        if e.get("kind") not in kinds or "rank" not in e:
+        if e.kind not in kinds or e.rank is None:
             continue
-        f = plan_path(run_dir, e["rank"])
+        f = plan_path(run_dir, e.rank)
         if f.is_file():
             out.append((e, f))
     if not out and "plan" in kinds and (Path(run_dir) / BEST_PLAN).is_file():
-        best = next((e for e in ranking if e.get("kind") == "plan"), {})
-        out.append(({**best, "rank": 1}, Path(run_dir) / BEST_PLAN))
+        best = next((e for e in ranking if e.kind == "plan"), Entry())
+        out.append((best.ranked(1), Path(run_dir) / BEST_PLAN))
     return out
 
 
 def write_run(
     out_dir: Path,
     problem_name: str,
-    ranked: Sequence[dict[str, Any]],
+    ranked: Sequence[Entry],
     trial_rows: Sequence[dict[str, Any]],
     record: dict[str, Any],
 ) -> list[str]:
     """Write ranking.json/.csv, trials.csv, best-plan.toml, plans/rank-NN.toml, run.json.
 
     ``ranked`` entries carry their plan as ``plan_toml`` (kept out of ranking.json: the
-    plan files hold it). Each file is written whole or not at all; plan files of an
+    plan files hold it) and their rank. Each file is written whole or not at all; plan files of an
     earlier, longer ranking are removed. Returns the names written.
     """
     out_dir = Path(out_dir)
     write_atomic(
         out_dir / RANKING_JSON,
-        json.dumps([{k: v for k, v in e.items() if k != "plan_toml"} for e in ranked], indent=2)
-        + "\n",
+        json.dumps([e.to_dict(plan=False) for e in ranked], indent=2) + "\n",
     )
-    write_atomic(out_dir / RANKING_CSV, csv_text(ranked, RANKING_COLUMNS))
+    write_atomic(out_dir / RANKING_CSV, csv_text([e.to_dict() for e in ranked], RANKING_COLUMNS))
     cols = list(trial_rows[0]) if trial_rows else ["study"]
     write_atomic(out_dir / TRIALS_CSV, csv_text(trial_rows, cols))
     names = [RANKING_CSV, RANKING_JSON, TRIALS_CSV]
     study = record.get("study", "")
     plan_files = set()
     for e in ranked:
-        if e.get("plan_toml"):
-            f = plan_path(out_dir, e["rank"])
+        if e.plan_toml and e.rank is not None:
+            f = plan_path(out_dir, e.rank)
             write_atomic(
                 f,
-                f"# rank {e['rank']} of study '{study}' on {problem_name} (simulation only)\n"
-                + e["plan_toml"],
+                f"# rank {e.rank} of study '{study}' on {problem_name} (simulation only)\n"
+                + e.plan_toml,
             )
             plan_files.add(f.name)
     for old in (out_dir / PLANS).glob("rank-*.toml"):  # left by an earlier, longer ranking
@@ -281,12 +295,12 @@ def write_run(
             old.unlink()
     if plan_files:
         names.append(PLANS + "/")
-    best = next((e for e in ranked if e["kind"] == "plan"), None)
-    if best and best.get("plan_toml"):
+    best = next((e for e in ranked if e.kind == "plan"), None)
+    if best and best.plan_toml:
         write_atomic(
             out_dir / BEST_PLAN,
             f"# best plan of study '{study}' on {problem_name} (simulation only)\n"
-            + best["plan_toml"].replace('label = "', 'label = "best: ', 1),
+            + best.plan_toml.replace('label = "', 'label = "best: ', 1),
         )
         names.append(BEST_PLAN)
     write_atomic(out_dir / RUN_JSON, json.dumps(record, indent=2) + "\n")

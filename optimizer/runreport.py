@@ -18,6 +18,7 @@ from .exceptions import InputError
 from .outputs import write_atomic
 from .plan import load_plan
 from .problem import Problem, load_problem
+from .ranking import Entry
 from .report import SAFETY_FULL, change, fmt
 from .robust import RobustScore, evaluate_robust, plant_set
 from .rundir import RANKING_JSON, REPORT, RUN_JSON, RunFolder, plan_path
@@ -72,13 +73,13 @@ def changed_since(run: RunFolder, problem: Problem) -> str | None:
     return None
 
 
-def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidate:
+def rebuild(entry: Entry, run: RunFolder, problem: Problem) -> Candidate:
     """The candidate (label, plan text, controller factory) of one ranked entry."""
     where = run.file(RANKING_JSON)
-    key = f"[rank {entry.get('rank')}]"
-    label = str(entry.get("label", ""))
-    if entry.get("kind") == "joint_space":
-        g = entry.get("joint_gains")
+    key = f"[rank {entry.rank}]"
+    label = entry.label
+    if entry.kind == "joint_space":
+        g = entry.joint_gains
         if not isinstance(g, dict) or "kp" not in g or "zeta" not in g:
             raise InputError(
                 where,
@@ -91,11 +92,11 @@ def rebuild(entry: dict[str, Any], run: RunFolder, problem: Problem) -> Candidat
             return joint_controller(p, kp, zeta, label=label)
 
         return label, joint_gains_text(tuple(kp), zeta), make_joint
-    f = plan_path(run.path, entry.get("rank", 0))
+    f = plan_path(run.path, entry.rank or 0)
     if not f.is_file():
         raise InputError(f, "", f"missing: the plan of {key} in {where}")
     plan = load_plan(f, problem.arm.joint_names)
-    kind = "osc" if entry.get("kind") == "osc" else "plan"
+    kind = "osc" if entry.kind == "osc" else "plan"
 
     def make_plan(p: Problem) -> Any:
         return plan_controller(p, plan, kind=kind)
@@ -113,33 +114,38 @@ def rescore(
     scored it, but on every plant)."""
     label, text, make = cand
     return evaluate_robust(
-        problem, plant_set(problem, problem.perturb.plants), make, label, text,
-        compute_margin=compute_margin, keep_rollouts=keep,
+        problem,
+        plant_set(problem, problem.perturb.plants),
+        make,
+        label,
+        text,
+        compute_margin=compute_margin,
+        keep_rollouts=keep,
     )
 
 
-def mismatches(entry: dict[str, Any], score: Score | RobustScore) -> list[str]:
+def mismatches(entry: Entry, score: Score | RobustScore) -> list[str]:
     """Figures where a re-score differs from the ranked entry (empty: reproduced exactly)."""
     now = json.loads(json.dumps(score.to_dict()))
     out = []
     for k in REPRODUCED:
-        a, b = entry.get(k), now.get(k)
+        a, b = entry.figure(k), now.get(k)
         if a != b:
             out.append(f"{k} {fmt(a, 6)} → {fmt(b, 6)}")
     return out
 
 
 # -- the report ----------------------------------------------------------------------
-def roles(ranking: Sequence[dict]) -> tuple[dict | None, dict | None, dict | None]:
+def roles(ranking: Sequence[Entry]) -> tuple[Entry | None, Entry | None, Entry | None]:
     """(best plan, tuned OSC, tuned joint-space) entries of a ranking."""
-    best = next((e for e in ranking if e.get("kind") == "plan"), None)
-    osc = next((e for e in ranking if e.get("kind") == "osc"), None)
-    joint = next((e for e in ranking if e.get("kind") == "joint_space"), None)
+    best = next((e for e in ranking if e.kind == "plan"), None)
+    osc = next((e for e in ranking if e.kind == "osc"), None)
+    joint = next((e for e in ranking if e.kind == "joint_space"), None)
     return best, osc, joint
 
 
-def _name(e: dict) -> str:
-    return f"#{e.get('rank')} {e.get('label')}"
+def _name(e: Entry) -> str:
+    return f"#{e.rank} {e.label}"
 
 
 def rollout_figures(
@@ -188,7 +194,10 @@ def rollout_figures(
         pick = [(label, rollouts)] + [(s[0], s[2]) for s in series if s[1] == "osc"][:1]
         put(
             fg.spectrum_figure(
-                pick, colors, names, [a.model.bandwidth_hz() for a in problem.actuators],
+                pick,
+                colors,
+                names,
+                [a.model.bandwidth_hz() for a in problem.actuators],
                 problem.dt,
             ),
             f"{prefix}spectrum.png",
@@ -228,18 +237,21 @@ def write_report(run: RunFolder, problem: Problem, notes: Sequence[str] = ()) ->
     objectives = list(run.record.get("objectives") or ["error"])
     if len(objectives) > 1 and run.trials:
         put(
-            fg.pareto_figure(run.trials, objectives[1], best.get("trial") if best else None),
+            fg.pareto_figure(run.trials, objectives[1], best.trial if best else None),
             "fig-pareto.png",
             f"Feasible plan trials, error index against {objectives[1]}; the Pareto front "
             "and the best-error plan (star).",
         )
-    ranked = [e for e in run.ranking if e.get("stiffness_margin") is not None]
+    ranked = [e for e in run.ranking if e.stiffness_margin is not None]
     if ranked:
         roles_of = {_name(e): r for e, r in ((best, "best"), (osc, "osc"), (joint, "joint")) if e}
         colors = fg.plan_colors([_name(e) for e in run.ranking], roles_of)
         put(
             fg.margin_figure(
-                [{**e, "label": _name(e)} for e in ranked], colors, problem.scoring.margins
+                [_name(e) for e in ranked],
+                [(e.stiffness_margin, e.delay_margin_ms, e.bandwidth_margin) for e in ranked],
+                colors,
+                problem.scoring.margins,
             ),
             "fig-margin.png",
             "Margins of each ranked entry, from the linearised loop at the worst sampled "
@@ -301,11 +313,11 @@ def problem_paragraph(problem: Problem, record: dict[str, Any]) -> str:
     )
 
 
-def ranking_markdown(ranking: Sequence[dict[str, Any]]) -> str:
+def ranking_markdown(ranking: Sequence[Entry]) -> str:
     """The ranked table as Markdown (the numbers of ranking.json, 3 significant digits)."""
     from .report import margin_cells, percent
 
-    front = any("pareto" in e for e in ranking)
+    front = any(e.pareto is not None for e in ranking)
     cols = [
         "rank",
         "entry",
@@ -326,31 +338,31 @@ def ranking_markdown(ranking: Sequence[dict[str, Any]]) -> str:
     ] + (["Pareto"] if front else [])
     lines = ["| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
     for e in ranking:
-        plants = e.get("plants") or 0
+        plants = e.plants or 0
         row = [
-            str(e.get("rank")),
-            str(e.get("label")).replace("|", "/"),
-            str(e.get("source")),
-            str(e.get("tiers")),
-            f"{e.get('plants_feasible')}/{plants}" if plants else "–",
-            fmt(e.get("p90_error")),
-            fmt(e.get("worst_error")),
-            fmt(e.get("error_index")),
-            fmt(e.get("pos_rms_mm")),
-            fmt(e.get("rot_rms_deg")),
+            str(e.rank),
+            str(e.label).replace("|", "/"),
+            str(e.source),
+            str(e.tiers),
+            f"{e.plants_feasible}/{plants}" if plants else "–",
+            fmt(e.p90_error),
+            fmt(e.worst_error),
+            fmt(e.error_index),
+            fmt(e.pos_rms_mm),
+            fmt(e.rot_rms_deg),
             *margin_cells(e),
-            fmt(e.get("peak_torque_ratio")),
-            percent(e.get("vs_tuned_osc")),
-            percent(e.get("vs_tuned_joint")),
+            fmt(e.peak_torque_ratio),
+            percent(e.vs_tuned_osc),
+            percent(e.vs_tuned_joint),
         ]
         if front:
-            row.append("yes" if e.get("pareto") else "")
+            row.append("yes" if e.pareto else "")
         lines.append("| " + " | ".join(row) + " |")
     return "\n".join(lines)
 
 
 def result_sentences(
-    ranking: Sequence[dict[str, Any]],
+    ranking: Sequence[Entry],
     problem: Problem,
     robustness: Sequence[dict[str, Any]] | None,
     check_seed: object = None,
@@ -362,34 +374,33 @@ def result_sentences(
     best, osc, joint = roles(ranking)
     if best is None:
         return ["No feasible tier plan was found."]
-    plants = int(best.get("plants") or 0)
-    how = best.get("statistic") or "p90"
+    plants = int(best.plants or 0)
+    how = best.statistic or "p90"
     what = (
         f"a robust error ({how} of the error index over the nominal plant and {plants} "
-        f"perturbed plants) of {fmt(best.get('robust_error'))}"
+        f"perturbed plants) of {fmt(best.robust_error)}"
         if plants
-        else f"an error index of {fmt(best.get('error_index'))}"
+        else f"an error index of {fmt(best.error_index)}"
     )
     sent = (
-        f"The best plan, {best.get('label')} ({best.get('tiers')} "
-        f"tier{'s' if best.get('tiers') != 1 else ''}: `{best.get('plan_text')}`), reaches "
-        f"{what} (nominal {fmt(best.get('error_index'))}: {fmt(best.get('pos_rms_mm'))} mm, "
-        f"{fmt(best.get('rot_rms_deg'))}° RMS)"
+        f"The best plan, {best.label} ({best.tiers} "
+        f"tier{'s' if best.tiers != 1 else ''}: `{best.plan_text}`), reaches "
+        f"{what} (nominal {fmt(best.error_index)}: {fmt(best.pos_rms_mm)} mm, "
+        f"{fmt(best.rot_rms_deg)}° RMS)"
     )
     comp = []
     for e, who in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
         if e is None:
             continue
-        key = "vs_tuned_osc" if e is osc else "vs_tuned_joint"
-        rel = best.get(key)
+        rel = best.vs_tuned_osc if e is osc else best.vs_tuned_joint
         if rel is None:
             continue
         pct = rel * 100.0
         side = "level with" if round(pct) == 0 else "below" if pct < 0 else "above"
         comp.append(
             (f"{abs(pct):.0f} % " if round(pct) else "") + f"{side} {who} "
-            f"({fmt(e.get('robust_error', e.get('error_index')))}; nominal "
-            f"{fmt(e.get('error_index'))})"
+            f"({fmt(e.robust_error if e.robust else e.error_index)}; nominal "
+            f"{fmt(e.error_index)})"
         )
     out = [sent + (": " + "; ".join(comp) if comp else "") + "."]
     from .runs import convergence_note
@@ -397,35 +408,40 @@ def result_sentences(
     for e, who in ((osc, "tuned single-tier OSC"), (joint, "tuned joint-space CLIK + PD")):
         note = convergence_note(e)
         if note:
-            out.append(f"The {who} may not have converged: {note}; more baseline trials "
-                       "could narrow the gap.")
+            out.append(
+                f"The {who} may not have converged: {note}; more baseline trials "
+                "could narrow the gap."
+            )
     st, de, bw = margin_cells(best)
     lim = problem.scoring.margins
     out.append(
         f"Its margins: every stiffness may grow {st}× (damping ratios held), every joint may "
         f"take {de} ms more delay, and every drive may be {bw}× slower before the linearised "
         f"loop oscillates (minimums {lim.stiffness:g}×, {lim.delay_ms:g} ms, "
-        f"{lim.bandwidth:g}×); its peak command is {fmt(best.get('peak_torque_ratio'))} of "
+        f"{lim.bandwidth:g}×); its peak command is {fmt(best.peak_torque_ratio)} of "
         "the effort limit."
     )
     lad = next(
-        (e for e in ranking
-         if e.get("source") == "ladder" and e.get("label") == "ladder: suggested plan"),
+        (e for e in ranking if e.source == "ladder" and e.label == "ladder: suggested plan"),
         None,
     )
-    if lad is not None and lad is not best and lad.get("robust_error"):
-        gain = (best["robust_error"] / lad["robust_error"] - 1.0) * 100.0
+    if lad is not None and lad is not best and lad.robust_error and best.robust_error:
+        gain = (best.robust_error / lad.robust_error - 1.0) * 100.0
         out.append(
-            f"The gain ladder's suggested plan (`{lad.get('plan_text')}`, evaluated first) "
-            f"reaches {fmt(lad.get('robust_error'))}; the search "
+            f"The gain ladder's suggested plan (`{lad.plan_text}`, evaluated first) "
+            f"reaches {fmt(lad.robust_error)}; the search "
             + (f"improved on it by {abs(gain):.0f} %." if gain < -0.5 else "did not improve on it.")
         )
     elif lad is not None and lad is best:
-        out.append("The best plan is the gain ladder's suggested plan: the search found none "
-                   "better.")
+        out.append(
+            "The best plan is the gain ladder's suggested plan: the search found none better."
+        )
     mine = next(
-        (r for r in robustness or [] if r.get("label") == best.get("label")
-         and r.get("plan_text") == best.get("plan_text")),
+        (
+            r
+            for r in robustness or []
+            if r.get("label") == best.label and r.get("plan_text") == best.plan_text
+        ),
         None,
     )
     if mine is not None and mine.get("plants"):
@@ -466,7 +482,7 @@ def report_text(
     out.pop()
     out += ["", "## Ranking", "", ranking_markdown(run.ranking), ""]
     out += ["Plans (`[joints] t = kp_t, r = kp_r` [1/s²], `z` = ζ):", ""]
-    out += [f"{e.get('rank')}. {e.get('label')}: `{e.get('plan_text')}`" for e in run.ranking]
+    out += [f"{e.rank}. {e.label}: `{e.plan_text}`" for e in run.ranking]
     out += ["", "## Figures", ""]
     for name, caption in figs:
         out += [f"![{name}]({name})", "", caption, ""]
@@ -497,8 +513,10 @@ def report_text(
             )
         out.append("")
     if run.upgrade:
-        out.append("Each drive made faster in turn (best robust error of the run's plans and "
-                   "the ladder's plans):")
+        out.append(
+            "Each drive made faster in turn (best robust error of the run's plans and "
+            "the ladder's plans):"
+        )
         out.append("")
         out.append("| joint | bandwidth now → upgraded [Hz] | error now | upgraded | improvement |")
         out.append("|---|---|---|---|---|")
@@ -508,7 +526,8 @@ def report_text(
                 f"| {r.get('joint')} | {fmt(r.get('bandwidth_hz'))} → "
                 f"{fmt(r.get('upgraded_bandwidth_hz'))} | {fmt(r.get('error_now'))} | "
                 f"{fmt(r.get('error_upgraded'))} | "
-                + ("–" if imp is None else f"{imp * 100:.0f} %") + " |"
+                + ("–" if imp is None else f"{imp * 100:.0f} %")
+                + " |"
             )
         out.append("")
     swap = rec.get("swap")

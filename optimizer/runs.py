@@ -26,6 +26,7 @@ from . import search as srch
 from .evaluate import plan_controller
 from .plan import Plan, load_plan, parse_plan
 from .problem import Problem
+from .ranking import Entry, rank, relative
 from .robust import evaluate_robust, plant_set
 from .tomlio import tomllib
 
@@ -78,16 +79,17 @@ class RunResult:
 
     studies: dict[str, optuna.Study]
     """By kind: ``plan``, ``osc``, ``joint_space``."""
-    ranked: list[dict[str, Any]]
-    """Ranking entries (score dict plus rank, source, plan_toml...), best first."""
-    plan_entries: list[dict[str, Any]]
+    ranked: list[Entry]
+    """Ranking entries, best first, each with its rank."""
+    plan_entries: list[Entry]
     """Every feasible plan entry, best first (the ranking keeps the top ones)."""
-    osc: dict[str, Any] | None
+    osc: Entry | None
     """Best tuned single-tier OSC entry."""
-    joint: dict[str, Any] | None
+    joint: Entry | None
     """Best tuned joint-space entry."""
-    seeded_scores: list[tuple[Seeded, dict[str, Any]]]
-    """Each seeded plan with its score dict under this problem (feasible or not)."""
+    seeded_scores: list[tuple[Seeded, Entry]]
+    """Each seeded plan with its score under this problem (feasible or not; a plan that
+    was not scored has only ``feasible`` and ``reason``)."""
     elapsed_s: float
     """Wall time of the studies [s]."""
     interrupted: bool = False
@@ -138,8 +140,9 @@ def run_studies(
                     enqueue += _tuned_osc_seed(problem, studies["osc"])
                 if settings.add:  # the progress total: what is there now plus what this adds
                     n += srch.finished(
-                        srch.open_study(settings.storage, name, settings.seed, settings.prune,
-                                        objectives)
+                        srch.open_study(
+                            settings.storage, name, settings.seed, settings.prune, objectives
+                        )
                     )
 
                 def progress(study: optuna.Study, kind: str = kind, n: int = n) -> None:
@@ -176,7 +179,7 @@ def run_studies(
     elapsed = time.perf_counter() - t0
 
     plan_e = srch.entries(studies["plan"], "search")
-    seeded_scores: list[tuple[Seeded, dict[str, Any]]] = []
+    seeded_scores: list[tuple[Seeded, Entry]] = []
     by_label = {
         t.user_attrs.get("label"): t
         for t in studies["plan"].get_trials(deepcopy=False)
@@ -185,80 +188,74 @@ def run_studies(
     for s in seeded:
         t = by_label.get(s.plan.label)
         if s in direct and interrupted:
-            d = {"feasible": False, "reason": "not scored: the run was interrupted"}
+            d = Entry(feasible=False, reason="not scored: the run was interrupted")
         elif s in direct:  # the search space cannot express it: scored as it is
             d = score_robust(problem, s.plan)
-            if d["feasible"]:
+            if d.feasible:
                 plan_e.append(
-                    {
-                        **d,
-                        "trial": None,
-                        "source": s.source,
-                        "label": s.plan.label,
-                        "plan_toml": s.plan.to_toml(),
-                        **s.extra,
-                    }
+                    dataclasses.replace(
+                        d,
+                        trial=None,
+                        source=s.source,
+                        label=s.plan.label,
+                        plan_toml=s.plan.to_toml(),
+                        extra={**d.extra, **s.extra},
+                    )
                 )
         elif t is not None and "score" in t.user_attrs:
-            d = dict(t.user_attrs["score"])
+            d = Entry.from_dict(t.user_attrs["score"])
             if not srch.feasible(t):
-                d["feasible"] = False
-                d["reason"] = d.get("reason") or t.user_attrs.get("reason")
+                d.feasible = False
+                d.reason = d.reason or t.user_attrs.get("reason")
         else:  # pruned or stopped by the pre-check
             reason = t.user_attrs.get("reason") if t is not None else None
-            d = {"feasible": False, "reason": reason or "pruned: worse than the median trial"}
+            d = Entry(feasible=False, reason=reason or "pruned: worse than the median trial")
         seeded_scores.append((s, d))
-    plan_e.sort(key=srch.ranking_value)
+    plan_e.sort(key=lambda e: e.value)
     osc_e = srch.entries(studies["osc"], "tuned")
     joint_e = srch.entries(studies["joint_space"], "tuned")
     osc, joint = (osc_e[0] if osc_e else None), (joint_e[0] if joint_e else None)
     for e, kind in ((osc, "osc"), (joint, "joint_space")):
         if e is not None:  # convergence: did the last quarter of the trials still improve it?
-            gain = srch.late_gain(studies[kind])
-            e["late_gain"] = gain
-            e["converged"] = gain is not None and gain <= CONVERGED_GAIN
+            e.late_gain = srch.late_gain(studies[kind])
+            e.converged = e.late_gain is not None and e.late_gain <= CONVERGED_GAIN
     if osc is not None:  # the plan study's copy of tuned OSC is not a second row
         plan_e = [
-            e for e in plan_e
-            if not (e.get("source") == "tuned-osc" and e.get("plan_text") == osc["plan_text"])
+            e for e in plan_e if not (e.source == "tuned-osc" and e.plan_text == osc.plan_text)
         ]
-    ranked = srch.rank(plan_e, [e for e in (osc, joint) if e], settings.top)
+    ranked = rank(plan_e, [e for e in (osc, joint) if e], settings.top)
     for e in ranked:
-        e["vs_tuned_osc"] = _relative(e, osc)
-        e["vs_tuned_joint"] = _relative(e, joint)
+        e.vs_tuned_osc = relative(e, osc)
+        e.vs_tuned_joint = relative(e, joint)
     return RunResult(studies, ranked, plan_e, osc, joint, seeded_scores, elapsed, interrupted)
 
 
-def _relative(e: dict[str, Any], ref: dict[str, Any] | None) -> float | None:
-    """Change of ``e``'s ranking value against ``ref``'s (−0.3: 30 % lower), or None."""
-    if ref is None:
-        return None
-    a, b = srch.ranking_value(e), srch.ranking_value(ref)
-    if not (math.isfinite(a) and math.isfinite(b)) or b <= 0:
-        return None
-    return a / b - 1.0
-
-
-def score_robust(problem: Problem, plan: Plan) -> dict[str, Any]:
+def score_robust(problem: Problem, plan: Plan) -> Entry:
     """A plan scored as a search trial is (nominal plant with margins, the problem's
-    perturbed plants), as a ranking dict."""
+    perturbed plants), as a ranking entry."""
     plants = plant_set(problem, problem.perturb.plants)
     kind = "osc" if plan.is_single_tier(problem.arm.n) else "plan"
-    return evaluate_robust(
-        problem, plants, lambda p: plan_controller(p, plan, kind=kind), plan.label,
-        plan.compact(problem.arm.n),
-    ).to_dict()
+    return Entry.from_dict(
+        evaluate_robust(
+            problem,
+            plants,
+            lambda p: plan_controller(p, plan, kind=kind),
+            plan.label,
+            plan.compact(problem.arm.n),
+        ).to_dict()
+    )
 
 
 #: A tuned baseline counts as converged when the last quarter of its trials improved its
 #: best value by no more than this fraction.
 CONVERGED_GAIN = 0.02
 
-def convergence_note(entry: dict[str, Any] | None) -> str | None:
+
+def convergence_note(entry: Entry | None) -> str | None:
     """Why a tuned baseline may not have converged, in words, or None when it has."""
-    if entry is None or entry.get("converged") is not False:
+    if entry is None or entry.converged is not False:
         return None
-    g = entry.get("late_gain")
+    g = entry.late_gain
     return (
         f"the last quarter of its trials still lowered its error by {g:.0%}"
         if g is not None
@@ -284,8 +281,7 @@ def baseline_seeds(
     if kind == "osc":
         gains = [(b.osc_kp_t, b.osc_kp_r, b.osc_zeta, "baseline: single-tier OSC", "baseline")]
         gains += [
-            (s.plan.tiers[0].kp_t, s.plan.tiers[0].kp_r, s.plan.tiers[0].zeta, s.plan.label,
-             "hand")
+            (s.plan.tiers[0].kp_t, s.plan.tiers[0].kp_r, s.plan.tiers[0].zeta, s.plan.label, "hand")
             for s in seeded
             if s.source == "hand" and s.plan.is_single_tier(problem.arm.n)
         ]
@@ -308,8 +304,11 @@ def baseline_seeds(
                 continue
             dev, frac = ladder.joint_to_coords(problem, np.array(kps), zeta)
             if math.isfinite(frac):
-                params = {"zeta": zeta, **{f"dev_{nm}": float(d) for nm, d in zip(names, dev)},
-                          "fraction": frac}
+                params = {
+                    "zeta": zeta,
+                    **{f"dev_{nm}": float(d) for nm, d in zip(names, dev)},
+                    "fraction": frac,
+                }
                 out.append((params, {"source": source, "label": label}))
     return out
 
@@ -320,9 +319,9 @@ def _tuned_osc_seed(
     """The best tuned single-tier OSC as a one-tier plan trial, so the plan search never
     starts below it (a trial of the plan budget, source ``tuned-osc``)."""
     best = srch.entries(osc, "tuned")
-    if not best or not best[0].get("plan_toml"):
+    if not best or not best[0].plan_toml:
         return []
-    plan = _plan_of(best[0]["plan_toml"], problem.arm.joint_names)
+    plan = _plan_of(best[0].plan_toml, problem.arm.joint_names)
     params = srch.plan_params(srch.clip_to_space(plan, problem), problem)
     if params is None:
         return []
@@ -415,8 +414,9 @@ def write_run(
     out_dir: Path, problem: Problem, result: RunResult, record: dict[str, Any]
 ) -> list[str]:
     """Write the run folder (``rundir.write_run``); returns the names written."""
-    return rundir.write_run(out_dir, problem.name, result.ranked, trial_rows(result.studies),
-                            record)
+    return rundir.write_run(
+        out_dir, problem.name, result.ranked, trial_rows(result.studies), record
+    )
 
 
 def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
@@ -429,11 +429,11 @@ def previous_plans(run_dir: Path, problem: Problem, top: int) -> list[Seeded]:
     )
     out: list[Seeded] = []
     for e, f in rundir.ranked_plan_paths(run_dir, ranking)[:top]:
-        rank = int(e["rank"])
+        place = int(e.rank or 1)
         plan = dataclasses.replace(
-            load_plan(f, problem.arm.joint_names), label=f"previous #{rank}"
+            load_plan(f, problem.arm.joint_names), label=f"previous #{place}"
         )
-        extra = {"previous_rank": rank, "previous_error_index": e.get("error_index")}
+        extra = {"previous_rank": place, "previous_error_index": e.error_index}
         out.append(Seeded(plan, "previous", extra))
     return out
 

@@ -47,6 +47,7 @@ from .journal import journal_storage
 from .objectives import directions, pareto_front
 from .plan import Plan, Tier
 from .problem import Problem, load_problem
+from .ranking import Entry
 from .robust import RobustScore, evaluate_robust, plant_set
 from .stability import LinearLoop, Margins
 
@@ -60,6 +61,8 @@ HOST = socket.gethostname()
 STALE_S = 60.0
 #: Study kinds and the suffix of their study names.
 KINDS = {"plan": "", "osc": ".osc", "joint_space": ".joint"}
+
+
 def _values(
     objectives: Sequence[str], error: float, score: Any | None
 ) -> float | tuple[float, float]:
@@ -153,8 +156,11 @@ def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
         prev = joints
     law = trial.suggest_categorical("law", list(sp.laws)) if len(sp.laws) > 1 else sp.laws[0]
     return Plan(
-        tuple(tiers), label=f"trial {getattr(trial, 'number', '-')}", nested=True,
-        joint_names=names, law=str(law),
+        tuple(tiers),
+        label=f"trial {getattr(trial, 'number', '-')}",
+        nested=True,
+        joint_names=names,
+        law=str(law),
     )
 
 
@@ -303,9 +309,7 @@ CONSTRAINT = "feasible"
 def _violation(problem: Problem, score: RobustScore) -> float:
     """How infeasible a scored candidate is: ≤ 0 feasible; 1 and more for a divergence."""
     nom = score.nominal
-    if any(t.diverged for t in nom.trajectories) or len(nom.trajectories) < len(
-        problem.references
-    ):
+    if any(t.diverged for t in nom.trajectories) or len(nom.trajectories) < len(problem.references):
         return 1.0
     worst = Margins(
         nom.stiffness_margin, nom.delay_margin_ms, nom.bandwidth_margin, math.nan, math.nan
@@ -368,9 +372,7 @@ def objective(
     def joint_objective(trial: optuna.trial.Trial) -> float | tuple[float, float]:
         names = problem.arm.joint_names
         zeta = trial.suggest_float("zeta", *sp.zeta_range)
-        dev = np.array(
-            [trial.suggest_float(f"dev_{nm}", *ladder.DEVIATION_RANGE) for nm in names]
-        )
+        dev = np.array([trial.suggest_float(f"dev_{nm}", *ladder.DEVIATION_RANGE) for nm in names])
         frac = trial.suggest_float("fraction", *ladder.FRACTION_RANGE)
         kp = ladder.joint_from_coords(problem, zeta, dev, frac)
         kp = np.where(kp > 0, np.clip(kp, *sp.joint_kp_range), sp.joint_kp_range[0])
@@ -378,7 +380,9 @@ def objective(
         trial.set_user_attr("tiers", 1)
         trial.set_user_attr("joint_gains", {"kp": [float(x) for x in kp], "zeta": float(zeta)})
         return run(
-            trial, lambda p: joint_controller(p, kp, zeta, label=label), label,
+            trial,
+            lambda p: joint_controller(p, kp, zeta, label=label),
+            label,
             joint_gains_text(kp, zeta),
         )
 
@@ -507,8 +511,14 @@ def make_sampler(
     each (log) range."""
     quiet_optuna()
     if name == "cmaes":
-        return _CMA(x0=x0, sigma0=None, seed=seed, n_startup_trials=0,
-                    warn_independent_sampling=False, consider_pruned_trials=True)
+        return _CMA(
+            x0=x0,
+            sigma0=None,
+            seed=seed,
+            n_startup_trials=0,
+            warn_independent_sampling=False,
+            consider_pruned_trials=True,
+        )
     return _TPE(seed=seed, multivariate=True, group=True, n_startup_trials=10)
 
 
@@ -761,9 +771,7 @@ def run_worker(job: WorkerJob) -> int:
     problem = _worker_problem(job)
     opts = study_options(problem, job.kind)
     opts["x0"] = dict(job.x0) or None
-    study = open_study(
-        job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts
-    )
+    study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts)
     n0 = finished(study)
     try:
         _WORKING = True
@@ -922,8 +930,11 @@ def late_gain(study: optuna.Study, share: float = 0.25) -> float | None:
     """How much the best feasible value improved over the last ``share`` of the study's
     ended trials, as a fraction (0.05: 5 % lower); None with no feasible trial before."""
     ended = sorted(
-        (t for t in study.get_trials(deepcopy=False)
-         if t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)),
+        (
+            t
+            for t in study.get_trials(deepcopy=False)
+            if t.state in (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
+        ),
         key=lambda t: t.number,
     )
     if not ended:
@@ -942,17 +953,10 @@ def best_value(study: optuna.Study) -> float | None:
     return min(vals, default=None)
 
 
-def ranking_value(e: dict[str, Any]) -> float:
-    """What a ranking sorts by: the robust error (the nominal error index for entries
-    scored without perturbed plants); None sorts last."""
-    v = e.get("robust_error", e.get("error_index"))
-    return math.inf if v is None else float(v)
+def entries(study: optuna.Study, source: str) -> list[Entry]:
+    """Feasible trials as ranking entries (score, trial, source, label, plan), best first.
 
-
-def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
-    """Feasible trials as ranking entries (the score dict plus trial, source, plan).
-
-    In a two-objective study each entry also has ``pareto`` (on the feasible front).
+    In a two-objective study each entry also says whether it is on the feasible front.
     """
     out = []
     trials = [
@@ -961,31 +965,13 @@ def entries(study: optuna.Study, source: str) -> list[dict[str, Any]]:
     dirs = [d.name.lower() for d in study.directions]
     front = pareto_front([t.values for t in trials], dirs) if len(dirs) > 1 else []
     for i, t in enumerate(trials):
-        e = dict(t.user_attrs["score"])
-        if front:
-            e["pareto"] = front[i]
-        e["trial"] = t.number
-        e["source"] = t.user_attrs.get("source", source)
+        e = Entry.from_dict(t.user_attrs["score"])
+        e.pareto = front[i] if front else None
+        e.trial = t.number
+        e.source = t.user_attrs.get("source", source)
         if t.user_attrs.get("label"):
-            e["label"] = t.user_attrs["label"]
-        e["plan_toml"] = t.user_attrs.get("plan_toml")
-        if "joint_gains" in t.user_attrs:
-            e["joint_gains"] = t.user_attrs["joint_gains"]
+            e.label = t.user_attrs["label"]
+        e.plan_toml = t.user_attrs.get("plan_toml")
+        e.joint_gains = t.user_attrs.get("joint_gains")
         out.append(e)
-    return sorted(out, key=ranking_value)
-
-
-def rank(
-    plan_entries: list[dict[str, Any]], baselines: list[dict[str, Any]], top: int
-) -> list[dict[str, Any]]:
-    """Top ``top`` plans, every hand or previous plan, the Pareto front and the baselines.
-
-    Ranked by error.
-    """
-    keep = plan_entries[:top] + [
-        e for e in plan_entries[top:]
-        if e["source"] in ("hand", "previous") or e.get("pareto")
-        or e.get("label") == "ladder: suggested plan"
-    ]
-    allr = sorted(keep + baselines, key=ranking_value)
-    return [{"rank": i + 1, **e} for i, e in enumerate(allr)]
+    return sorted(out, key=lambda e: e.value)

@@ -214,7 +214,11 @@ def test_history_margin_and_pareto_figures():
         {"rank": 2, "label": "b", "stiffness_margin": 2.1, "delay_margin_ms": 1.5,
          "bandwidth_margin": 1.3},
     ]  # fmt: skip
-    axes = fg.margin_figure(entries, {"a": fg.BEST}, MarginLimits()).get_axes()
+    axes = fg.margin_figure(
+        [e["label"] for e in entries],
+        [(e["stiffness_margin"], e["delay_margin_ms"], e["bandwidth_margin"]) for e in entries],
+        {"a": fg.BEST}, MarginLimits(),
+    ).get_axes()
     assert len(axes) == 3
     for a in axes:
         assert len(a.patches) == 2 and a.get_xlabel()

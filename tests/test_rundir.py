@@ -10,19 +10,20 @@ import pytest
 
 from optimizer import rundir
 from optimizer.exceptions import InputError
+from optimizer.ranking import Entry
 
 PLAN_TOML = 'label = "p"\n\n[[tier]]\njoints = "all"\nkp_t = 100.0\nkp_r = 10.0\n'
 
 
-def _ranked() -> list[dict]:
+def _ranked() -> list[Entry]:
     return [
-        {"rank": 1, "kind": "plan", "label": "a", "error_index": 1.5, "plan_toml": PLAN_TOML},
-        {"rank": 2, "kind": "osc", "label": "b", "error_index": 2.5, "plan_toml": PLAN_TOML},
-        {"rank": 3, "kind": "joint_space", "label": "c", "error_index": 3.5},
+        Entry(rank=1, kind="plan", label="a", error_index=1.5, plan_toml=PLAN_TOML),
+        Entry(rank=2, kind="osc", label="b", error_index=2.5, plan_toml=PLAN_TOML),
+        Entry(rank=3, kind="joint_space", label="c", error_index=3.5),
     ]
 
 
-def _write(tmp_path: Path, ranked: list[dict] | None = None) -> list[str]:
+def _write(tmp_path: Path, ranked: list[Entry] | None = None) -> list[str]:
     rows = [{"study": "s", "kind": "plan", "number": 0, "value": 1.5}]
     return rundir.write_run(tmp_path, "demo", ranked or _ranked(), rows, {"study": "s"})
 
@@ -33,8 +34,13 @@ def test_what_write_run_writes_read_run_reads_back(tmp_path: Path) -> None:
                      "run.json"]
     run = rundir.read_run(tmp_path)
     assert run.record == {"study": "s"}
-    assert [e["label"] for e in run.ranking] == ["a", "b", "c"]
-    assert all("plan_toml" not in e for e in run.ranking)  # the plan files hold the plans
+    assert [e.label for e in run.ranking] == ["a", "b", "c"]
+    assert all(e.plan_toml is None for e in run.ranking)  # the plan files hold the plans
+    assert "plan_toml" not in (tmp_path / "ranking.json").read_text()
+    # what was written is what is read back, but for the plan text
+    import dataclasses
+
+    assert run.ranking == [dataclasses.replace(e, plan_toml=None) for e in _ranked()]
     assert run.trials == [{"study": "s", "kind": "plan", "number": "0", "value": "1.5"}]
     assert run.robustness is None and run.sensitivity is None and run.upgrade is None
     assert rundir.plan_path(tmp_path, 2).read_text().endswith(PLAN_TOML)
@@ -55,15 +61,15 @@ def test_a_shorter_ranking_removes_the_plan_files_it_no_longer_has(tmp_path: Pat
 def test_ranked_plan_paths_by_kind_and_the_old_single_file_layout(tmp_path: Path) -> None:
     _write(tmp_path)
     ranking = rundir.read_ranking(tmp_path)
-    assert [e["rank"] for e, _ in rundir.ranked_plan_paths(tmp_path, ranking)] == [1]
+    assert [e.rank for e, _ in rundir.ranked_plan_paths(tmp_path, ranking)] == [1]
     both = rundir.ranked_plan_paths(tmp_path, ranking, kinds=("plan", "osc"))
     assert [f.name for _, f in both] == ["rank-01.toml", "rank-02.toml"]
     for f in (tmp_path / "plans").iterdir():  # a run from before plans/ existed
         f.unlink()
     (tmp_path / "plans").rmdir()
     old = rundir.ranked_plan_paths(tmp_path, ranking)
-    assert [(e["rank"], f.name) for e, f in old] == [(1, "best-plan.toml")]
-    assert old[0][0]["error_index"] == 1.5
+    assert [(e.rank, f.name) for e, f in old] == [(1, "best-plan.toml")]
+    assert old[0][0].error_index == 1.5
 
 
 def test_extras_are_read_back_and_checked(tmp_path: Path) -> None:
@@ -91,6 +97,9 @@ def test_extras_are_read_back_and_checked(tmp_path: Path) -> None:
         ("upgrade.json", "{}", "must hold a list"),
         ("sensitivity.json", "[]", "must hold a JSON object"),
         ("robustness.json", '{"entries": 3}', "must be a list of entries"),
+        ("ranking.json", '[{"rank": 1}, {"error_index": "low"}]',
+         "[1].error_index: must be a number or null"),
+        ("ranking.json", '[{"feasible": 1}]', "[0].feasible: must be bool"),
     ],
 )
 def test_bad_files_are_one_input_error_naming_the_file(
@@ -112,8 +121,8 @@ def test_missing_folder_and_files(tmp_path: Path) -> None:
 
 
 def test_labels_from_a_run_folder_are_made_printable(tmp_path: Path) -> None:
-    _write(tmp_path, [{"rank": 1, "kind": "plan", "label": "a\x1b[2Jb", "plan_toml": PLAN_TOML}])
-    label = rundir.read_run(tmp_path).ranking[0]["label"]
+    _write(tmp_path, [Entry(rank=1, kind="plan", label="a\x1b[2Jb", plan_toml=PLAN_TOML)])
+    label = rundir.read_run(tmp_path).ranking[0].label
     assert "\x1b" not in label and label.startswith("a") and label.endswith("b")
 
 

@@ -168,15 +168,15 @@ def test_two_objective_study_has_a_feasible_front(planar, tmp_path, second) -> N
     assert all(t.state.name == "COMPLETE" and len(t.values) == 2 for t in trials)
     assert all(srch.CONSTRAINT in t.constraints for t in trials)
     es = srch.entries(study, "search")
-    assert es and any(e["pareto"] for e in es)
+    assert es and any(e.pareto for e in es)
     key = "stiffness_margin" if second == "margin" else "tau_rms_nm"
     sign = -1.0 if second == "margin" else 1.0
-    front = [e for e in es if e["pareto"]]
+    front = [e for e in es if e.pareto]
     for f in front:  # nothing feasible is at least as good in both and better in one
         assert not any(
-            e["error_index"] <= f["error_index"]
-            and sign * e[key] <= sign * f[key]
-            and (e["error_index"] < f["error_index"] or sign * e[key] < sign * f[key])
+            e.error_index <= f.error_index
+            and sign * e.figure(key) <= sign * f.figure(key)
+            and (e.error_index < f.error_index or sign * e.figure(key) < sign * f.figure(key))
             for e in es
         )
     with pytest.raises(InputError, match="another --study"):
