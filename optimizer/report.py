@@ -6,6 +6,7 @@ import json
 import math
 import sys
 from collections.abc import Sequence
+from typing import Protocol
 
 from rich.console import Console
 from rich.markup import escape
@@ -131,13 +132,22 @@ def margin_text(x: float | None, cap: float, digits: int = 2) -> str:
     return f"{x:.{digits}g}" if x < 100 else f"{x:.0f}"
 
 
-def margin_cells(d: object) -> list[str]:
-    """Stiffness ×, delay ms, bandwidth × of a Score, an Entry or anything with those
-    attributes (a delay cap when it has one)."""
+class HasMargins(Protocol):
+    """What ``margin_cells`` reads: a Score, an Entry, a sensitivity row..."""
+
+    @property
+    def stiffness_margin(self) -> float | None: ...
+    @property
+    def delay_margin_ms(self) -> float | None: ...
+    @property
+    def bandwidth_margin(self) -> float | None: ...
+
+
+def margin_cells(d: HasMargins) -> list[str]:
+    """Stiffness ×, delay ms, bandwidth × of a Score, an Entry or a sensitivity row (a
+    delay cap when it has one)."""
     return margin_texts(
-        d.stiffness_margin,
-        d.delay_margin_ms,
-        d.bandwidth_margin,  # type: ignore[attr-defined]
+        d.stiffness_margin, d.delay_margin_ms, d.bandwidth_margin,
         getattr(d, "delay_cap_ms", None),
     )
 
