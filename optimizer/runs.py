@@ -24,6 +24,7 @@ import optuna
 from . import __version__, ladder, rundir
 from . import search as srch
 from .evaluate import plan_controller
+from .exceptions import InputError
 from .plan import Plan, load_plan, parse_plan
 from .problem import Problem
 from .ranking import Entry, rank, relative
@@ -378,7 +379,7 @@ def run_record(
         "urdf_sha256": _file_sha256(problem.arm.source),
         "actuator_files": [str(a) for a in problem.actuator_files],
         "study": settings.study,
-        "storage": srch._redact(settings.storage),
+        "storage": srch.redact(settings.storage),
         "seed": settings.seed,
         "workers": settings.workers,
         "trials": settings.trials,
@@ -449,3 +450,86 @@ def tier_depth(plan_toml: str | None, joint_names: Sequence[str]) -> dict[str, i
         return {}
     plan = _plan_of(plan_toml, joint_names)
     return {nm: sum(1 for t in plan.tiers if j in t.joints) for j, nm in enumerate(joint_names)}
+
+
+def refresh_run(run_dir: Path, problem: Problem, storage: str, study: str | None) -> None:
+    """Rewrite a run folder's ranking from the studies in ``storage`` (no trial is run):
+    what several hosts searched on one database, gathered into the folder."""
+    old = rundir.read_run(run_dir).record
+    settings = RunSettings(
+        storage=storage,
+        study=study or str(old.get("study") or Path(run_dir).name),
+        trials=0,
+        baseline_trials=0,
+        seed=int(old.get("seed") or 0),
+        objectives=tuple(old.get("objectives") or ("error",)),
+        add=True,
+        informed=False,
+    )
+    result = run_studies(problem, settings)
+    record = {
+        **old,
+        "study": settings.study,
+        "finished_trials": {k: srch.finished(st) for k, st in result.studies.items()},
+        "refreshed_from": srch.redact(storage),
+    }
+    write_run(run_dir, problem, result, record)
+
+
+@dataclass(frozen=True)
+class SwapBasis:
+    """What a swap run takes over from the earlier run (a value given for the swap wins)."""
+
+    study: str
+    """The swap's plan study: given, or ``<earlier study>.swap-<last file>-<hash of the
+    actuator files>`` (the same files resume the same study)."""
+    trials: int | None
+    """Plan trials: given, else the earlier run's (None: the problem's)."""
+    baseline_trials: int | None
+    """Baseline trials: given, else the earlier run's."""
+    seed: int | None
+    """Sampler seed: given, else the earlier run's."""
+    storage: str | None
+    """The earlier run's storage (used unless another is given)."""
+
+    def options(self) -> dict[str, Any]:
+        """As command-line option values (``study``, ``trials``, ``baseline_trials``,
+        ``seed``)."""
+        return {"study": self.study, "trials": self.trials,
+                "baseline_trials": self.baseline_trials, "seed": self.seed}
+
+
+def swap_basis(
+    from_dir: Path,
+    actuator_files: Sequence[Path],
+    study: str | None = None,
+    trials: int | None = None,
+    baseline_trials: int | None = None,
+    seed: int | None = None,
+    storage: str | None = None,
+) -> SwapBasis:
+    """The settings of a swap run from the earlier run's run.json and what was given.
+
+    Raises InputError when the earlier storage URL was kept without its password and no
+    other storage is given.
+    """
+    old = rundir.read_record(Path(from_dir))
+    if study is None:
+        tag = hashlib.sha256(b"".join(Path(a).read_bytes() for a in actuator_files))
+        old_study = str(old.get("study") or Path(from_dir).name)
+        study = f"{old_study}.swap-{Path(actuator_files[-1]).stem}-{tag.hexdigest()[:6]}"
+    if trials is None and old.get("trials"):
+        trials = int(old["trials"])
+    if baseline_trials is None and old.get("baseline_trials"):
+        baseline_trials = int(old["baseline_trials"])
+    if seed is None and old.get("seed") is not None:
+        seed = int(old["seed"])
+    old_storage = old.get("storage")
+    if old_storage and "***" in str(old_storage) and not storage:
+        raise InputError(
+            Path(from_dir) / rundir.RUN_JSON,
+            "storage",
+            "the earlier run's storage URL is kept without its password: give --storage",
+        )
+    return SwapBasis(study, trials, baseline_trials, seed,
+                     None if old_storage is None else str(old_storage))

@@ -442,11 +442,11 @@ def open_storage(spec: str) -> Any:
                 time.sleep(0.2 * (attempt + 1) + random.random() * 0.3)
         text = str(last).strip()
         first = text.splitlines()[0] if text else type(last).__name__
-        raise InputError("--storage", "", f"cannot open {_redact(spec)}: {first}") from last
+        raise InputError("--storage", "", f"cannot open {redact(spec)}: {first}") from last
     return journal_storage(spec)
 
 
-def _redact(url: str) -> str:
+def redact(url: str) -> str:
     """The URL without its password."""
     return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", url)
 
