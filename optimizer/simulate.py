@@ -23,9 +23,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pinocchio as pin
 
+from . import plant
 from .actuators import DiscreteBank, JointActuator, discretize
 from .arm import Arm
-from .control import Controller, kernels
+from .control import Controller
 from .trajectories import Reference
 
 #: Default width of the Coulomb smoothing [rad/s]; widened per joint where needed.
@@ -209,7 +210,7 @@ class ClosedLoop:
         """Advance ``st`` by one tick under the command ``tau`` [N·m]: saturation, rate
         limit, delay, actuator lag, friction and the plant. Returns the joint pinned longest.
         """
-        worst = kernels.actuate(
+        worst = plant.actuate(
             tau,
             st.u_prev,
             self.rate_step,
@@ -223,11 +224,11 @@ class ClosedLoop:
         if nsub > 1:
             self._del_sum[:] = 0.0
         for _ in range(nsub):
-            kernels.drive_packed(
+            plant.drive_packed(
                 st.xa, self._ud, self._ABd, self._CDm, self._fr, st.v, self._net, self._del
             )
             a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
-            kernels.integrate(st.q, st.v, a, self.h)
+            plant.integrate(st.q, st.v, a, self.h)
             if nsub > 1:
                 self._del_sum += self._del
         if nsub > 1:  # the logged delivered torque is the mean over the tick
@@ -243,21 +244,21 @@ class ClosedLoop:
     # -- rollout ---------------------------------------------------------------
     def _explain(self, code: int, worst: int, t: float, st: LoopState) -> str:
         s, names = self.settings, self.arm.joint_names
-        if code == kernels.STOP_SINGULAR:
+        if code == plant.STOP_SINGULAR:
             return f"singular solve in the controller at t={t:.3f} s"
-        if code == kernels.STOP_NONFINITE:
+        if code == plant.STOP_NONFINITE:
             return f"state became non-finite at t={t:.3f} s"
-        if code == kernels.STOP_ERROR_BOUND:
+        if code == plant.STOP_ERROR_BOUND:
             e = self.controller.e6
             err = math.sqrt(float(e[:3] @ e[:3]))
             return (
                 f"tip error {err * 1000:.0f} mm over the {s.max_error_m * 1000:.0f} mm "
                 f"bound at t={t:.3f} s"
             )
-        if code == kernels.STOP_PINNED:
+        if code == plant.STOP_PINNED:
             j = int(np.argmax(st.pinned))
             return f"torque of {names[j]} pinned at its limit for {s.pinned_s:g} s (t={t:.3f} s)"
-        j = code - kernels.STOP_JOINT_LIMIT
+        j = code - plant.STOP_JOINT_LIMIT
         return f"{names[j]} left its position limits ({np.rad2deg(st.q[j]):.1f} deg) at t={t:.3f} s"
 
     def rollout(self, ref: Reference, seed: int | None = None) -> Rollout:
@@ -289,7 +290,7 @@ class ClosedLoop:
             V[k] = st.v
             np.add(st.v, noise[k], out=vm)
             status, worst = self.step(k, st, vm)
-            code = kernels.record(
+            code = plant.record(
                 k,
                 st.q,
                 st.v,

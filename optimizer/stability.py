@@ -224,7 +224,7 @@ class LinearLoop:
             self.Gp = np.zeros_like(G11)
             self.Gd = np.zeros_like(G11)
         self.G0 = G11 - self.Gp - self.Gd
-        # saturation and rate limit at the instant, as in kernels.actuate
+        # saturation and rate limit at the instant, as in plant.actuate
         eff = loop.effort
         u = np.clip(tau0, -eff, eff)
         du = u - state.u_prev

@@ -10,8 +10,8 @@ import scipy.signal as sg
 from scipy.integrate import quad_vec
 from scipy.linalg import expm
 
+from optimizer import plant
 from optimizer.actuators import FirstOrder, JointActuator, SecondOrder, discretize
-from optimizer.control import kernels
 
 # scipy converts the state space to a transfer function whose leading numerator
 # coefficients are zero and warns about it; the response it returns is exact.
@@ -115,7 +115,7 @@ def test_delay_is_exact_in_samples(delays) -> None:
     arrivals = {}
     for k in range(10):
         cmd = np.ones(n) if k == 0 else np.zeros(n)
-        kernels.actuate(cmd, u_prev, rate, hist, d, effort, pinned, ud)
+        plant.actuate(cmd, u_prev, rate, hist, d, effort, pinned, ud)
         for j in np.flatnonzero(ud):
             arrivals.setdefault(int(j), k)
     assert arrivals == {j: delays[j] for j in range(n)}
@@ -130,7 +130,7 @@ def test_saturation_rate_limit_and_pinned_counter() -> None:
     effort = np.array([2.0])
     seen = []
     for _ in range(8):
-        kernels.actuate(
+        plant.actuate(
             np.array([10.0]), u_prev, rate, hist, np.zeros(1, np.int64), effort, pinned, ud
         )
         seen.append(float(ud[0]))

@@ -9,8 +9,8 @@ import pinocchio as pin
 import pytest
 from problems import pendulum_urdf, two_link_urdf
 
+from optimizer import plant
 from optimizer.arm import Arm, PlantDeviation
-from optimizer.control import kernels
 
 # Golden values: planar elbow manipulator (Spong, Hutchinson & Vidyasagar, "Robot Modeling
 # and Control", planar elbow manipulator example — section number from memory), recomputed
@@ -84,7 +84,7 @@ def _pendulum_energy_drift(method: str, seconds: float) -> float:
     for _ in range(int(seconds / h)):
         a = pin.aba(model, data, q, v, zero)
         if method == "semi-implicit":
-            kernels.integrate(q, v, a, h)
+            plant.integrate(q, v, a, h)
         else:
             q, v = q + h * v, v + h * a
         worst = max(worst, abs(energy(q, v) - e0) / scale)

@@ -1,4 +1,5 @@
-"""Compiled per-tick linear algebra (numba). Pure functions on arrays, no I/O.
+"""Compiled per-tick linear algebra of the control laws (numba). Pure functions on arrays,
+no I/O. The plant's kernels (drives, friction, integration, logging) are in ``plant.py``.
 
 The readable form of the same maths is in ``tiered.py``; tests check they agree.
 """
@@ -6,44 +7,17 @@ The readable form of the same maths is in ``tiered.py``; tests check they agree.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from pathlib import Path
 
-import numba
 import numpy as np
 from numba import njit
 
+from ..jit import writable_cache
 
-def _writable_cache() -> None:
-    """Compiled kernels are cached beside this file; where that folder cannot be written
-    (an installed, read-only package) they go to a folder of the user's in the temporary
-    directory instead of failing at import."""
-    if os.environ.get("NUMBA_CACHE_DIR"):
-        return
-    here = Path(__file__).resolve().parent / "__pycache__"
-    try:
-        here.mkdir(exist_ok=True)
-        ok = os.access(here, os.W_OK)
-    except OSError:
-        ok = False
-    if not ok:
-        uid = os.getuid() if hasattr(os, "getuid") else 0
-        numba.config.CACHE_DIR = str(  # type: ignore[attr-defined]
-            Path(tempfile.gettempdir()) / f"tierplan-numba-{uid}"
-        )
-
-
-_writable_cache()
+writable_cache(Path(__file__).resolve().parent / "__pycache__")
 
 OK = 0
 SINGULAR = 1
-#: Why ``record`` stops a rollout (0: it goes on); a joint limit is STOP_JOINT_LIMIT + j.
-STOP_SINGULAR = 1
-STOP_NONFINITE = 2
-STOP_ERROR_BOUND = 3
-STOP_PINNED = 4
-STOP_JOINT_LIMIT = 10
 
 
 @njit(cache=True)
@@ -384,145 +358,6 @@ def tiered_command(
             t_ = -lim
         tau[i] = t_
     return OK
-
-
-@njit(cache=True)
-def actuate(
-    tau_cmd: np.ndarray,
-    u_prev: np.ndarray,
-    rate_step: np.ndarray,
-    hist: np.ndarray,
-    delay: np.ndarray,
-    effort: np.ndarray,
-    pinned: np.ndarray,
-    u_d: np.ndarray,
-) -> int:
-    """Saturate, rate-limit and delay the command; returns the joint pinned longest.
-
-    ``hist[i]`` holds the command of i+1 ticks ago; joint j is delayed ``delay[j]``
-    ticks. ``pinned[j]`` counts consecutive ticks at the effort limit. Writes the
-    command that reaches the actuator this tick into ``u_d``.
-    """
-    n = tau_cmd.shape[0]
-    D = hist.shape[0]
-    worst = 0
-    for j in range(n):
-        u = min(effort[j], max(-effort[j], tau_cmd[j]))
-        du = u - u_prev[j]
-        if du > rate_step[j]:
-            u = u_prev[j] + rate_step[j]
-        elif du < -rate_step[j]:
-            u = u_prev[j] - rate_step[j]
-        u_prev[j] = u
-        if abs(u) >= effort[j] * (1.0 - 1e-9):
-            pinned[j] += 1
-        else:
-            pinned[j] = 0
-        if pinned[j] > pinned[worst]:
-            worst = j
-        dj = delay[j]
-        u_d[j] = u if dj == 0 else hist[dj - 1, j]
-        for i in range(D - 1, 0, -1):
-            hist[i, j] = hist[i - 1, j]
-        if D > 0:
-            hist[0, j] = u
-    return worst
-
-
-@njit(cache=True)
-def integrate(q: np.ndarray, v: np.ndarray, a: np.ndarray, h: float) -> None:
-    """Semi-implicit Euler: v ← v + h a, then q ← q + h v."""
-    for j in range(q.shape[0]):
-        v[j] += h * a[j]
-        q[j] += h * v[j]
-
-
-@njit(cache=True)
-def record(
-    k: int,
-    q: np.ndarray,
-    v: np.ndarray,
-    e6: np.ndarray,
-    u: np.ndarray,
-    tau_del: np.ndarray,
-    tier_tau: np.ndarray,
-    Q: np.ndarray,
-    E: np.ndarray,
-    TC: np.ndarray,
-    TD: np.ndarray,
-    TT: np.ndarray,
-    lower: np.ndarray,
-    upper: np.ndarray,
-    max_err2: float,
-    pinned: np.ndarray,
-    pinned_ticks: int,
-    status: int,
-) -> int:
-    """Log tick ``k`` and check for divergence.
-
-    Returns 0, or a STOP_* code: singular solve, non-finite state, tip error over the bound,
-    a command pinned at its limit too long, STOP_JOINT_LIMIT + j for joint j outside its
-    limits.
-    """
-    n = q.shape[0]
-    for i in range(6):
-        E[k, i] = e6[i]
-    for j in range(n):
-        TC[k, j] = u[j]
-        TD[k, j] = tau_del[j]
-        for t in range(tier_tau.shape[0]):
-            TT[k, t, j] = tier_tau[t, j]
-    if status != 0:
-        return STOP_SINGULAR
-    finite = True
-    for j in range(n):
-        if not (math.isfinite(q[j]) and math.isfinite(v[j])):
-            finite = False
-    if not finite:
-        return STOP_NONFINITE
-    if e6[0] * e6[0] + e6[1] * e6[1] + e6[2] * e6[2] > max_err2:
-        return STOP_ERROR_BOUND
-    for j in range(n):
-        if pinned[j] >= pinned_ticks:
-            return STOP_PINNED
-    for j in range(n):
-        if q[j] < lower[j] or q[j] > upper[j]:
-            return STOP_JOINT_LIMIT + j
-    return 0
-
-
-@njit(cache=True)
-def drive_packed(
-    xa: np.ndarray,
-    u_d: np.ndarray,
-    ABd: np.ndarray,
-    CDm: np.ndarray,
-    fr: np.ndarray,
-    v: np.ndarray,
-    tau_net: np.ndarray,
-    tau_del: np.ndarray,
-) -> None:
-    """``drive`` with [Ad Bd] and [Cm Dm] side by side and friction rows [τ_c; v_ε; b]."""
-    nx = xa.shape[0]
-    n = v.shape[0]
-    for j in range(n):
-        y = 0.0
-        for i in range(nx):
-            y += CDm[j, i] * xa[i]
-        for i in range(n):
-            y += CDm[j, nx + i] * u_d[i]
-        tau_del[j] = y
-        tau_net[j] = y - fr[0, j] * math.tanh(v[j] / fr[1, j]) - fr[2, j] * v[j]
-    xn = np.empty(nx)
-    for i in range(nx):
-        acc = 0.0
-        for c in range(nx):
-            acc += ABd[i, c] * xa[c]
-        for c in range(n):
-            acc += ABd[i, nx + c] * u_d[c]
-        xn[i] = acc
-    for i in range(nx):
-        xa[i] = xn[i]
 
 
 @njit(cache=True)
