@@ -112,6 +112,8 @@ class Arm:
         deviation: plant deviation from the model.
         source: the URDF's file name, for messages.
         armature: reflected rotor inertia per joint [kg·m²], known to model and plant alike.
+        model: the pinocchio model ``build_model`` made of ``urdf_xml`` (copied), to save
+            building it again.
     """
 
     def __init__(
@@ -122,10 +124,11 @@ class Arm:
         deviation: PlantDeviation | None = None,
         source: object = None,
         armature: Sequence[float] | np.ndarray | None = None,
+        model: pin.Model | None = None,
     ) -> None:
         self.source = source
         self.urdf_xml = urdf_xml
-        self.model = build_model(urdf_xml, source)
+        self.model = build_model(urdf_xml, source) if model is None else model.copy()
         if not self.model.existFrame(tip_frame):
             names = [f.name for f in self.model.frames if f.name != "universe"]
             raise ProblemError(
@@ -190,6 +193,7 @@ class Arm:
             deviation,
             self.source,
             armature=np.array(self.model.armature),
+            model=self.model,
         )
         other.effort = self.effort
         return other

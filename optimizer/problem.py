@@ -21,7 +21,7 @@ import numpy as np
 
 from .actuators import ACTUATOR_MODELS, JointActuator, make_model
 from .actuators.base import ModelParameterError
-from .arm import Arm, PlantDeviation, read_urdf
+from .arm import Arm, PlantDeviation, build_model, read_urdf
 from .control import AXES, ControlSettings, clik_cached
 from .exceptions import ProblemError
 from .simulate import SimSettings
@@ -296,37 +296,102 @@ def apply_actuator_file(
 
 
 def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) -> Problem:
-    """Build a problem from parsed TOML ``data`` that came from ``path``."""
+    """Build a problem from parsed TOML ``data`` that came from ``path``: one reader per
+    table, called in the order their errors are reported. The arm's pinocchio model is
+    built once."""
     root = TableReader(data, path, "", ProblemError)
-    base = path.parent
     warnings: list[str] = []
+    name, description = _read_name(root, path)
+    src = _read_arm_source(root, path, warnings)
+    deviation = _read_plant(root)
+    tacts = root.table("actuators", required=True)
+    model = build_model(src.xml, src.path)  # joint names and kinds before the actuators
+    names = list(model.names[1:])
+    control_tab = root.table("control", required=True)
+    rate = control_tab.float("rate_hz", min_value=MIN_RATE_HZ, max_value=MAX_RATE_HZ)
+    act_specs, armature = _read_actuators(tacts, names, rate, path, warnings)
+    arm, acts = _build_arm(src, model, deviation, armature, act_specs, path)
+    control = _read_control(control_tab, arm.n, rate, path)
+    sim, scoring = _read_simulation(root, rate, path)
+    baseline = _read_baseline(root, arm.n, control, path)
+    specs = _read_trajectories(root, path, rate, scoring.settle_s)
+    search = _read_search(root.table("search"), names)
+    perturb = _read_perturb(root.table("perturb"))
+    root.done()
+
+    p0, R0 = arm.tip_pose(arm.home)
+    refs = tuple(sample(s.name, s.kind, s.duration_s, rate, p0, R0) for s in specs)
+    digest = (
+        hashlib.sha256(path.read_bytes() + src.xml.encode()).hexdigest() if path.exists() else ""
+    )
+    prob = Problem(
+        path=path,
+        name=name,
+        description=description,
+        arm=arm,
+        actuators=tuple(acts),
+        control=control,
+        sim=sim,
+        scoring=scoring,
+        baseline=baseline,
+        search=search,
+        perturb=perturb,
+        trajectories=tuple(specs),
+        references=refs,
+        digest=digest,
+        warnings=tuple(warnings),
+    )
+    if check_reach:
+        check_reachable(prob)
+    for w in warnings:
+        log.debug("%s", w)  # the caller shows Problem.warnings
+    return prob
+
+
+def _read_name(root: TableReader, path: Path) -> tuple[str, str]:
+    """``name`` (it names a results folder) and ``description``."""
     name = root.str("name", path.parent.name if path.name == "problem.toml" else path.stem)
     if not SAFE_NAME.fullmatch(name):
         raise ProblemError(
             path, "name", f"'{name[:40]}' cannot name a results folder: use letters, digits, "
             "'.', '_' and '-' (at most 64, not starting with '.')"
         )
-    description = root.str("description", "")
+    return name, root.str("description", "")
 
-    # -- arm -----------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _ArmSource:
+    """The ``[arm]`` table: the model as URDF text (MJCF converted), tip frame, home."""
+
+    xml: str
+    path: Path
+    tip: str
+    home: tuple[float, ...] | None
+
+
+def _read_arm_source(root: TableReader, path: Path, warnings: list[str]) -> _ArmSource:
     ta = root.table("arm", required=True)
     if ta.has("urdf") == ta.has("mjcf"):
         raise ProblemError(
             path, "arm", "needs exactly one of urdf = \"<file>\" and mjcf = \"<file>\""
         )
     if ta.has("urdf"):
-        urdf_path = (base / ta.str("urdf")).resolve()
+        urdf_path = (path.parent / ta.str("urdf")).resolve()
         urdf_xml = read_urdf(urdf_path, "arm.urdf", path)
     else:
         from .mjcf import read_mjcf
 
-        urdf_path = (base / ta.str("mjcf")).resolve()
+        urdf_path = (path.parent / ta.str("mjcf")).resolve()
         urdf_xml, mjcf_warnings = read_mjcf(urdf_path, "arm.mjcf", path)
         warnings += mjcf_warnings
     tip = ta.str("tip_frame")
     home_raw = ta.floats("home", None)
     ta.done()
+    return _ArmSource(urdf_xml, urdf_path, tip, None if home_raw is None else tuple(home_raw))
 
+
+def _read_plant(root: TableReader) -> PlantDeviation:
+    """``[plant]``: how the simulated plant differs from the controller's model."""
     tp = root.table("plant")
     dev_args: dict[str, Any] = {}
     dev_args["payload_kg"] = tp.float("payload_kg", 0.0, min_value=0.0, max_value=10_000.0)
@@ -344,16 +409,17 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     tl.done()
     dev_args["link_mass_scale"] = lms
     tp.done()
+    return PlantDeviation(**dev_args)
 
-    # -- actuators (read before the arm to know armatures) ---------------------
-    tacts = root.table("actuators", required=True)
-    # joint names come from the URDF; build a throwaway arm for names only
-    names = _joint_names(urdf_xml, urdf_path, tip)
+
+def _read_actuators(
+    tacts: TableReader, names: Sequence[str], rate: float, path: Path, warnings: list[str]
+) -> tuple[list[JointActuator], np.ndarray]:
+    """``[actuators.<joint>]`` (over ``[actuators.default]``): one drive per joint, and
+    the armatures the arm's model needs."""
     default = tacts.table("default") if tacts.has("default") else None
     act_specs = []
     armature = np.zeros(len(names))
-    control_tab = root.table("control", required=True)
-    rate = control_tab.float("rate_hz", min_value=MIN_RATE_HZ, max_value=MAX_RATE_HZ)
     for key in list(tacts.data):
         if key != "default" and key not in names:
             raise ProblemError(
@@ -388,24 +454,37 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     if default is not None:
         tacts.seen.add("default")
     tacts.done()
+    return act_specs, armature
 
-    n = len(names)
-    if home_raw is None:
+
+def _build_arm(
+    src: _ArmSource,
+    model: Any,
+    deviation: PlantDeviation,
+    armature: np.ndarray,
+    act_specs: Sequence[JointActuator],
+    path: Path,
+) -> tuple[Arm, list[JointActuator]]:
+    """The arm (from the model already built) at its home posture, and each drive with
+    its effort limit (its own, else the URDF's)."""
+    n = model.nv
+    names = list(model.names[1:])
+    if src.home is None:
         home = np.zeros(n)
     else:
-        if len(home_raw) != n:
+        if len(src.home) != n:
             raise ProblemError(
-                path, "arm.home", f"needs {n} values (one per joint), got {len(home_raw)}"
+                path, "arm.home", f"needs {n} values (one per joint), got {len(src.home)}"
             )
-        home = np.array(home_raw, dtype=float)
+        home = np.array(src.home, dtype=float)
+    # home: degrees for revolute joints, metres for prismatic ones
+    home_q = np.array(
+        [math.radians(h) if _revolute(model, j) else h for j, h in enumerate(home)]
+    )
     try:
         arm = Arm(
-            urdf_xml,
-            tip,
-            home=None,
-            deviation=PlantDeviation(**dev_args),
-            source=urdf_path,
-            armature=armature,
+            src.xml, src.tip, home=home_q, deviation=deviation, source=src.path,
+            armature=armature, model=model,
         )
     except ProblemError as err:
         if err.key.startswith("plant."):
@@ -413,29 +492,14 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         if err.key == "tip_frame":
             raise ProblemError(path, "arm.tip_frame", err.reason) from err
         raise
-    # home: degrees for revolute joints, metres for prismatic ones
-    home_q = np.array(
-        [
-            math.radians(h) if arm.model.joints[j + 1].shortname().startswith("JointModelR") else h
-            for j, h in enumerate(home)
-        ]
-    )
     for j in range(n):
         if not (arm.lower[j] <= home_q[j] <= arm.upper[j]):
             raise ProblemError(
                 path,
                 "arm.home",
                 f"{names[j]} = {home[j]:g} is outside its URDF limits "
-                f"[{_show(arm, j, arm.lower[j])}, {_show(arm, j, arm.upper[j])}]",
+                f"[{_show(model, j, arm.lower[j])}, {_show(model, j, arm.upper[j])}]",
             )
-    arm = Arm(
-        urdf_xml,
-        tip,
-        home=home_q,
-        deviation=PlantDeviation(**dev_args),
-        source=urdf_path,
-        armature=armature,
-    )
     effort = np.array(arm.effort)
     acts = []
     for j, a in enumerate(act_specs):
@@ -447,9 +511,11 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
                 "the arm model gives no effort limit (0 or none): give effort_nm here",
             )
         acts.append(dataclasses.replace(a, effort_nm=eff))
-    arm = _with_effort(arm, np.array([a.effort_nm for a in acts]))
+    return _with_effort(arm, np.array([a.effort_nm for a in acts])), acts
 
-    # -- control ---------------------------------------------------------------
+
+def _read_control(control_tab: TableReader, n: int, rate: float, path: Path) -> ControlSettings:
+    """``[control]`` (its ``rate_hz`` already read)."""
     axes_names = control_tab.strings("task_axes", AXES)
     for a in axes_names:
         if a not in AXES:
@@ -465,10 +531,14 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
     nd = _per_joint(control_tab, "null_damping_nms_per_rad", n, 0.0)
     lam = control_tab.float("tier_damping", 1e-4, min_value=0.0, max_value=1e3)
     control_tab.done()
-    control = ControlSettings(
+    return ControlSettings(
         rate_hz=rate, task_axes=axes, null_stiffness=ns, null_damping=nd, tier_damping=lam
     )
 
+
+def _read_simulation(root: TableReader, rate: float, path: Path) -> tuple[SimSettings, Scoring]:
+    """``[simulation]``, ``[sensing]`` and ``[scoring]`` (the settle time and margin
+    minimums are in ``[simulation]``)."""
     tsim = root.table("simulation")
     tsense = root.table("sensing")
     sim = SimSettings(
@@ -496,7 +566,13 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         raise ProblemError(
             path, "scoring.pos_weight", "and rot_weight are both 0: every plan would score 0"
         )
+    return sim, scoring
 
+
+def _read_baseline(
+    root: TableReader, n: int, control: ControlSettings, path: Path
+) -> BaselineGains:
+    """``[baseline]``: the untuned baselines' gains and the CLIK settings."""
     tb = root.table("baseline")
     baseline = BaselineGains(
         osc_kp_t=tb.float("osc_kp_t", 400.0, min_value=0.0),
@@ -516,11 +592,15 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
             f"{baseline.clik_gain * control.dt:g}",
         )
     tb.done()
+    return baseline
 
-    # -- trajectories ----------------------------------------------------------
-    specs = []
-    for tr in root.table_list("trajectory"):
-        specs.append(_read_trajectory(tr, base, path))
+
+def _read_trajectories(
+    root: TableReader, path: Path, rate: float, settle_s: float
+) -> list[TrajectorySpec]:
+    """``[[trajectory]]``: at least one, unique names, bounded length, longer than the
+    settle time."""
+    specs = [_read_trajectory(tr, path.parent, path) for tr in root.table_list("trajectory")]
     if not specs:
         raise ProblemError(path, "trajectory", "the problem needs at least one [[trajectory]]")
     seen: set[str] = set()
@@ -536,13 +616,16 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
                 f"{s.duration_s:g} s at {rate:g} Hz is {ticks:.3g} control periods; the limit "
                 f"is {MAX_TICKS:.0e} per trajectory (shorten it or lower control.rate_hz)",
             )
-    if all(s.duration_s <= scoring.settle_s for s in specs):
+    if all(s.duration_s <= settle_s for s in specs):
         raise ProblemError(
-            path, "simulation.settle_s", f"{scoring.settle_s:g} s is as long as every "
+            path, "simulation.settle_s", f"{settle_s:g} s is as long as every "
             "trajectory: nothing would be scored (make it shorter than the trajectories)"
         )
-    search = _read_search(root.table("search"), names)
-    tpert = root.table("perturb")
+    return specs
+
+
+def _read_perturb(tpert: TableReader) -> PerturbSpread:
+    """``[perturb]``: spreads of the perturbed plants."""
     perturb = PerturbSpread(
         bandwidth_rel=tpert.float("bandwidth_rel", 0.15, min_value=0.0, max_value=0.9),
         damping_rel=tpert.float("damping_rel", 0.1, min_value=0.0, max_value=0.9),
@@ -559,35 +642,7 @@ def parse_problem(data: dict[str, Any], path: Path, check_reach: bool = True) ->
         ),
     )
     tpert.done()
-    root.done()
-
-    p0, R0 = arm.tip_pose(arm.home)
-    refs = tuple(sample(s.name, s.kind, s.duration_s, rate, p0, R0) for s in specs)
-    digest = (
-        hashlib.sha256(path.read_bytes() + urdf_xml.encode()).hexdigest() if path.exists() else ""
-    )
-    prob = Problem(
-        path=path,
-        name=name,
-        description=description,
-        arm=arm,
-        actuators=tuple(acts),
-        control=control,
-        sim=sim,
-        scoring=scoring,
-        baseline=baseline,
-        search=search,
-        perturb=perturb,
-        trajectories=tuple(specs),
-        references=refs,
-        digest=digest,
-        warnings=tuple(warnings),
-    )
-    if check_reach:
-        check_reachable(prob)
-    for w in warnings:
-        log.debug("%s", w)  # the caller shows Problem.warnings
-    return prob
+    return perturb
 
 
 def check_reachable(prob: Problem) -> None:
@@ -634,13 +689,6 @@ def check_reachable(prob: Problem) -> None:
 
 
 # -- helpers -------------------------------------------------------------------
-def _joint_names(urdf_xml: str, urdf_path: Path, tip: str) -> list[str]:
-    from .arm import build_model
-
-    model = build_model(urdf_xml, urdf_path)
-    return list(model.names[1:])
-
-
 def _with_effort(arm: Arm, effort: np.ndarray) -> Arm:
     e = effort.copy()
     e.setflags(write=False)
@@ -648,10 +696,13 @@ def _with_effort(arm: Arm, effort: np.ndarray) -> Arm:
     return arm
 
 
-def _show(arm: Arm, j: int, value: float) -> str:
-    if arm.model.joints[j + 1].shortname().startswith("JointModelR"):
-        return f"{math.degrees(value):.1f}"
-    return f"{value:g}"
+def _revolute(model: Any, j: int) -> bool:
+    """Joint ``j`` (0-based) of a pinocchio model turns (degrees in problem files)."""
+    return bool(model.joints[j + 1].shortname().startswith("JointModelR"))
+
+
+def _show(model: Any, j: int, value: float) -> str:
+    return f"{math.degrees(value):.1f}" if _revolute(model, j) else f"{value:g}"
 
 
 def _per_joint(t: TableReader, key: str, n: int, default: float) -> tuple[float, ...]:
