@@ -301,22 +301,39 @@ def _score(
     )
 
 
-def score_plan(problem: Problem, plan: Plan, **kw: object) -> Score:
-    """Evaluate a tier plan (kind ``osc`` when it is one all-joint tier)."""
+def score_plan(
+    problem: Problem,
+    plan: Plan,
+    *,
+    compute_margin: bool = True,
+    seed: int | None = None,
+    keep_rollouts: list[Rollout] | None = None,
+    stop_on_failure: bool = False,
+) -> Score:
+    """Evaluate a tier plan (kind ``osc`` when it is one all-joint tier); the options are
+    ``evaluate``'s."""
     n = problem.arm.n
-    kind = "osc" if plan.is_single_tier(n) else "plan"
-    ctrl = plan_controller(problem, plan, kind="plan" if kind == "plan" else "osc")
-    if kw.pop("as_plan", False):
-        ctrl.kind = "plan"
-    return evaluate(problem, ctrl, plan.label, plan.compact(n), **kw)  # type: ignore[arg-type]
+    ctrl = plan_controller(problem, plan, kind="osc" if plan.is_single_tier(n) else "plan")
+    return evaluate(problem, ctrl, plan.label, plan.compact(n), compute_margin=compute_margin,
+                    seed=seed, keep_rollouts=keep_rollouts,
+                    stop_on_failure=stop_on_failure)
 
 
-def score_osc_baseline(problem: Problem, **kw: object) -> Score:
-    """Single-tier OSC at the problem's baseline gains."""
+def score_osc_baseline(
+    problem: Problem,
+    *,
+    compute_margin: bool = True,
+    seed: int | None = None,
+    keep_rollouts: list[Rollout] | None = None,
+    stop_on_failure: bool = False,
+) -> Score:
+    """Single-tier OSC at the problem's baseline gains; the options are ``evaluate``'s."""
     b = problem.baseline
     plan = osc_plan(problem, b.osc_kp_t, b.osc_kp_r, b.osc_zeta, label="baseline: single-tier OSC")
     ctrl = plan_controller(problem, plan, kind="osc")
-    return evaluate(problem, ctrl, plan.label, plan.compact(problem.arm.n), **kw)  # type: ignore[arg-type]
+    return evaluate(problem, ctrl, plan.label, plan.compact(problem.arm.n),
+                    compute_margin=compute_margin, seed=seed, keep_rollouts=keep_rollouts,
+                    stop_on_failure=stop_on_failure)
 
 
 def joint_gains_text(kp: tuple[float, ...] | np.ndarray, zeta: float) -> str:
@@ -330,10 +347,20 @@ def joint_gains_text(kp: tuple[float, ...] | np.ndarray, zeta: float) -> str:
     return f"joint PD {body} z{zeta:.3g}"
 
 
-def score_joint_baseline(problem: Problem, **kw: object) -> Score:
-    """Joint-space CLIK + PD at the problem's baseline gains."""
+def score_joint_baseline(
+    problem: Problem,
+    *,
+    compute_margin: bool = True,
+    seed: int | None = None,
+    keep_rollouts: list[Rollout] | None = None,
+    stop_on_failure: bool = False,
+) -> Score:
+    """Joint-space CLIK + PD at the problem's baseline gains; the options are
+    ``evaluate``'s."""
     b = problem.baseline
     ctrl = joint_controller(
         problem, b.joint_kp, b.joint_zeta, label="baseline: joint-space CLIK + PD"
     )
-    return evaluate(problem, ctrl, ctrl.label, joint_gains_text(b.joint_kp, b.joint_zeta), **kw)  # type: ignore[arg-type]
+    return evaluate(problem, ctrl, ctrl.label, joint_gains_text(b.joint_kp, b.joint_zeta),
+                    compute_margin=compute_margin, seed=seed, keep_rollouts=keep_rollouts,
+                    stop_on_failure=stop_on_failure)
