@@ -24,7 +24,6 @@ from .ladder import ladder_variants
 from .plan import Plan
 from .problem import Problem
 from .robust import RobustScore, evaluate_robust, plant_set
-from .stability import scaled_model
 
 
 def _json_ready(record: object) -> dict[str, object]:
@@ -81,7 +80,7 @@ def stepped_plants(problem: Problem) -> list[tuple[str, str, Problem]]:
              dataclasses.replace(a, coulomb_nm=a.coulomb_nm * (1 + sp.friction_rel),
                                  viscous_nms=a.viscous_nms * (1 + sp.friction_rel))),
             (f"bandwidth:{a.joint}", f"−{sp.bandwidth_rel:.0%}",
-             dataclasses.replace(a, model=scaled_model(a.model, 1.0 - sp.bandwidth_rel))),
+             dataclasses.replace(a, model=a.model.scaled(1.0 - sp.bandwidth_rel))),
         ]
         for name, words, act in steps:
             acts = list(problem.actuators)
@@ -146,9 +145,9 @@ def upgraded(problem: Problem, joint: str, factor: float) -> Problem:
     acts = []
     for a in problem.actuators:
         if a.joint == joint:
-            m = scaled_model(a.model, factor)
+            m = a.model.scaled(factor)
             if m.fastest_hz() >= 0.95 * nyq:
-                m = scaled_model(m, 0.95 * nyq / m.fastest_hz())
+                m = m.scaled(0.95 * nyq / m.fastest_hz())
             a = dataclasses.replace(a, model=m)
         acts.append(a)
     return dataclasses.replace(problem, actuators=tuple(acts))

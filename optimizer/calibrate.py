@@ -34,7 +34,6 @@ from .actuators import discretize
 from .problem import Problem
 from .rollout_log import RunLog
 from .simulate import V_EPS
-from .stability import scaled_model
 
 
 @dataclass(frozen=True)
@@ -68,7 +67,7 @@ class Calibration:
         for j, a in enumerate(problem.actuators):
             acts.append(dataclasses.replace(
                 a,
-                model=scaled_model(a.model, self.bandwidth_scale[j]),
+                model=a.model.scaled(self.bandwidth_scale[j]),
                 delay_ticks=max(0, a.delay_ticks + self.extra_delay_ticks),
                 coulomb_nm=self.coulomb_nm[j],
                 viscous_nms=self.viscous_nms[j],
@@ -86,7 +85,7 @@ def _delivered(problem: Problem, log: RunLog, scales: np.ndarray, extra: int) ->
     K, n = log.tau_cmd.shape
     out = np.empty((K, n))
     for j, a in enumerate(problem.actuators):
-        act = dataclasses.replace(a, model=scaled_model(a.model, float(scales[j])))
+        act = dataclasses.replace(a, model=a.model.scaled(float(scales[j])))
         bank = discretize([act], problem.dt)
         b, den = scipy.signal.ss2tf(bank.Ad, bank.Bd, bank.Cm, bank.Dm)
         b = np.atleast_1d(np.squeeze(b))

@@ -27,7 +27,6 @@ import numpy as np
 from .control import Controller
 from .evaluate import Score, evaluate
 from .problem import Problem
-from .stability import scaled_model
 
 #: Statistics a robust objective may use.
 STATISTICS = ("p90", "worst", "mean")
@@ -44,12 +43,11 @@ def perturbed(problem: Problem, rng: np.random.Generator, index: int) -> Problem
     acts = []
     for a in problem.actuators:
         d = int(rng.integers(-sp.delay_ticks, sp.delay_ticks + 1)) if sp.delay_ticks else 0
-        model = scaled_model(a.model, u(sp.bandwidth_rel))
+        model = a.model.scaled(u(sp.bandwidth_rel))
         if model.fastest_hz() >= 0.95 * nyq:  # keep the drive below Nyquist
-            model = scaled_model(model, 0.95 * nyq / model.fastest_hz())
-        if hasattr(model, "damping_ratio") and sp.damping_rel > 0:
-            zeta = model.damping_ratio * u(sp.damping_rel)
-            model = dataclasses.replace(model, damping_ratio=zeta)  # type: ignore[type-var]
+            model = model.scaled(0.95 * nyq / model.fastest_hz())
+        if (zeta := model.damping()) is not None and sp.damping_rel > 0:
+            model = model.with_damping(zeta * u(sp.damping_rel))
         acts.append(
             dataclasses.replace(
                 a,
@@ -81,10 +79,9 @@ def corner_plant(problem: Problem) -> Problem:
     sp = problem.perturb
     acts = []
     for a in problem.actuators:
-        model = scaled_model(a.model, 1.0 - sp.bandwidth_rel)
-        if hasattr(model, "damping_ratio") and sp.damping_rel > 0:
-            zeta = model.damping_ratio * (1.0 - sp.damping_rel)
-            model = dataclasses.replace(model, damping_ratio=zeta)  # type: ignore[type-var]
+        model = a.model.scaled(1.0 - sp.bandwidth_rel)
+        if (zeta := model.damping()) is not None and sp.damping_rel > 0:
+            model = model.with_damping(zeta * (1.0 - sp.damping_rel))
         acts.append(
             dataclasses.replace(
                 a,

@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 import pinocchio as pin
 
-from .actuators import ActuatorModel, JointActuator, discretize
+from .actuators import JointActuator, discretize
 from .exceptions import SimulationError
 from .simulate import ClosedLoop, LoopState
 from .trajectories import Reference
@@ -80,16 +80,6 @@ def spectral_radius(A: np.ndarray) -> float:
     if not np.all(np.isfinite(A)):
         return float("inf")
     return float(np.max(np.abs(np.linalg.eigvals(A))))
-
-
-def scaled_model(model: ActuatorModel, factor: float) -> ActuatorModel:
-    """``model`` with every frequency parameter (fields ending ``_hz``) times ``factor``."""
-    changes = {
-        f.name: getattr(model, f.name) * factor
-        for f in dataclasses.fields(model)  # type: ignore[arg-type]
-        if f.name.endswith("_hz")
-    }
-    return dataclasses.replace(model, **changes)  # type: ignore[type-var]
 
 
 @dataclass(frozen=True)
@@ -272,7 +262,7 @@ class LinearLoop:
     def _bank(self, bandwidth: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         if bandwidth not in self._banks:
             acts: Sequence[JointActuator] = [
-                dataclasses.replace(a, model=scaled_model(a.model, 1.0 / bandwidth))
+                dataclasses.replace(a, model=a.model.scaled(1.0 / bandwidth))
                 for a in self.loop.actuators
             ]
             b = discretize(acts, self.h)

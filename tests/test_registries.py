@@ -56,6 +56,22 @@ def test_actuator_model_contract(kind, params) -> None:
     np.testing.assert_allclose(bank.Bd, Bd, atol=1e-12)
     text = m.describe()
     assert text and "\n" not in text
+    # its parameters and their units are the registry's keys
+    assert tuple(m.units) == ACTUATOR_MODELS[kind][1] and all(m.units.values())
+    assert {k: getattr(m, k) for k in m.units} == params
+    # scaled(f): the same shape f times faster, so H_f(j f w) = H(j w) at every frequency
+    # (frequency scaling of a transfer function; common practice, no source)
+    fast = m.scaled(2.5)
+    assert fast.kind == m.kind and fast.bandwidth_hz() == pytest.approx(2.5 * m.bandwidth_hz())
+    for f in (0.3, 1.0, 7.0, 40.0):
+        assert abs(_response(fast, 2.5 * f) - _response(m, f)) < 1e-12
+    zeta = m.damping()
+    if zeta is None:
+        with pytest.raises(ValueError):
+            m.with_damping(0.5)
+    else:
+        assert m.with_damping(zeta) == m and m.with_damping(0.5).damping() == 0.5
+        assert m.with_damping(0.5).scaled(1.0) == m.with_damping(0.5)
 
 
 #: One instance per trajectory kind (a kind missing here fails the next test).

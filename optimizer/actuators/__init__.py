@@ -16,6 +16,11 @@ ACTUATOR_MODELS: dict[str, tuple[type[Any], tuple[str, ...]]] = {
 }
 
 
+def parameter_units() -> dict[str, str]:
+    """Unit of every model parameter of every registered kind, by key."""
+    return {k: u for cls, _ in ACTUATOR_MODELS.values() for k, u in cls.units.items()}
+
+
 def make_model(kind: str, **params: float) -> ActuatorModel:
     """Build a model by kind name; an unknown kind raises KeyError listing the known ones."""
     if kind not in ACTUATOR_MODELS:
@@ -35,4 +40,5 @@ __all__ = [
     "continuous_bank",
     "discretize",
     "make_model",
+    "parameter_units",
 ]

@@ -34,6 +34,23 @@ class ActuatorModel(Protocol):
         """Short text: kind and parameters with units."""
         ...
 
+    units: ClassVar[dict[str, str]]
+    """Unit of each parameter, by its key in problem files (``Hz``, ``-``...)."""
+
+    def scaled(self, factor: float) -> ActuatorModel:
+        """The same model ``factor`` times faster: every frequency parameter times
+        ``factor`` (its bandwidth then scales by ``factor`` exactly)."""
+        ...
+
+    def damping(self) -> float | None:
+        """Its damping ratio ζ, or None for a model that has none."""
+        ...
+
+    def with_damping(self, zeta: float) -> ActuatorModel:
+        """The same model with damping ratio ``zeta`` (only where ``damping()`` is not
+        None)."""
+        ...
+
 
 #: Largest frequency [Hz] and damping ratio [-] a model takes: far beyond any torque loop,
 #: and below where the model's arithmetic overflows (ζ = 1e308 did).

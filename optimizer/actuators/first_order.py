@@ -18,6 +18,7 @@ class FirstOrder:
     corner_hz: float
     """Corner (−3 dB) frequency [Hz]."""
     kind: ClassVar[str] = "first_order"
+    units: ClassVar[dict[str, str]] = {"corner_hz": "Hz"}
 
     def __post_init__(self) -> None:
         check_positive_finite(self.corner_hz, "corner_hz", MAX_MODEL_HZ)
@@ -34,3 +35,12 @@ class FirstOrder:
 
     def describe(self) -> str:
         return f"1st order {self.corner_hz:g} Hz"
+
+    def scaled(self, factor: float) -> FirstOrder:
+        return FirstOrder(self.corner_hz * factor)
+
+    def damping(self) -> float | None:
+        return None
+
+    def with_damping(self, zeta: float) -> FirstOrder:
+        raise ValueError("a first-order lag has no damping ratio")

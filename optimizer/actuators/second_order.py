@@ -20,6 +20,7 @@ class SecondOrder:
     damping_ratio: float
     """Damping ratio ζ [-], > 0."""
     kind: ClassVar[str] = "second_order"
+    units: ClassVar[dict[str, str]] = {"natural_hz": "Hz", "damping_ratio": "-"}
 
     def __post_init__(self) -> None:
         check_positive_finite(self.natural_hz, "natural_hz", MAX_MODEL_HZ)
@@ -43,3 +44,12 @@ class SecondOrder:
 
     def describe(self) -> str:
         return f"2nd order {self.natural_hz:g} Hz ζ {self.damping_ratio:g}"
+
+    def scaled(self, factor: float) -> SecondOrder:
+        return SecondOrder(self.natural_hz * factor, self.damping_ratio)
+
+    def damping(self) -> float | None:
+        return float(self.damping_ratio)
+
+    def with_damping(self, zeta: float) -> SecondOrder:
+        return SecondOrder(self.natural_hz, zeta)

@@ -94,7 +94,9 @@ def run(args: argparse.Namespace) -> int:
     t = Table(show_header=True)
     for col in ("figure", "value", "± 1σ", "unit"):
         t.add_column(col, justify="right" if col != "figure" else "left")
-    units = {"corner_hz": "Hz", "natural_hz": "Hz", "damping_ratio": "-", "delay_ms": "ms"}
+    from ..actuators import parameter_units
+
+    units = {**parameter_units(), "delay_ms": "ms"}
     t.add_row("model", fit.model, "", "")
     for k, v in [*fit.params.items(), ("delay_ms", fit.delay_ms)]:
         sd = fit.sigma[k]

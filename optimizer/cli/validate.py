@@ -162,7 +162,6 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _write_calibration(args, prob, cal) -> None:  # type: ignore[no-untyped-def]
-    import dataclasses
     import datetime
     import math
 
@@ -176,11 +175,11 @@ def _write_calibration(args, prob, cal) -> None:  # type: ignore[no-untyped-def]
     joints = {}
     ms = prob.dt * 1e3
     for j, a in enumerate(prob.actuators):
-        model = a.model
-        params = {f.name: getattr(model, f.name) for f in dataclasses.fields(model)}
+        model = a.model.scaled(cal.bandwidth_scale[j])
         vals: dict = {"model": model.kind}
-        for k, v in params.items():
-            vals[k] = float(f"{v * cal.bandwidth_scale[j]:.4g}") if k.endswith("_hz") else v
+        for k in model.units:  # a parameter the calibration changed: 4 significant digits
+            v, was = getattr(model, k), getattr(a.model, k)
+            vals[k] = v if v == was else float(f"{v:.4g}")
         vals["delay_ms"] = max(0, a.delay_ticks + cal.extra_delay_ticks) * ms
         vals["coulomb_nm"] = float(f"{cal.coulomb_nm[j]:.4g}")
         vals["viscous_nms_per_rad"] = float(f"{cal.viscous_nms[j]:.4g}")
