@@ -21,6 +21,11 @@ from tomlkit.items import InlineTable, Table
 from .exceptions import InputError
 from .problem import MODEL_KEYS
 
+__all__ = [
+    "update_actuator",
+    "write_calibrated",
+]
+
 
 def update_actuator(
     path: Path,

@@ -25,6 +25,16 @@ from .plan import Plan
 from .problem import Problem
 from .robust import RobustScore, evaluate_robust, plant_set
 
+__all__ = [
+    "Sensitivity",
+    "Upgrade",
+    "best_of",
+    "sensitivities",
+    "stepped_plants",
+    "upgrade_advice",
+    "upgraded",
+]
+
 
 def _json_ready(record: object) -> dict[str, object]:
     """A dataclass record as a JSON-ready dict (non-finite numbers become None)."""

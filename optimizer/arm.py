@@ -24,6 +24,24 @@ import pinocchio as pin
 
 from .exceptions import ProblemError
 
+__all__ = [
+    "DECLARATION",
+    "LWA",
+    "MAX_LINKS",
+    "MAX_URDF_BYTES",
+    "MAX_XML_DEPTH",
+    "URDF_JOINT_TYPES",
+    "Arm",
+    "PlantDeviation",
+    "build_model",
+    "check_urdf_content",
+    "link_inertials",
+    "read_urdf",
+    "refuse_declarations",
+    "sanitize_urdf",
+    "xml_depth",
+]
+
 log = logging.getLogger(__name__)
 
 LWA = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED

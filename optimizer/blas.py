@@ -12,6 +12,11 @@ from __future__ import annotations
 
 import os
 
+__all__ = [
+    "THREAD_VARIABLES",
+    "one_thread",
+]
+
 #: The variables the BLAS/OpenMP runtimes read at load time.
 THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 

@@ -35,6 +35,11 @@ from .problem import Problem
 from .rollout_log import RunLog
 from .simulate import V_EPS
 
+__all__ = [
+    "Calibration",
+    "calibrate",
+]
+
 
 @dataclass(frozen=True)
 class Calibration:

@@ -19,6 +19,24 @@ from .problem import Problem
 from .simulate import ClosedLoop, Rollout
 from .stability import Margins, delay_cap_ticks, loop_margins, unstable_instant
 
+__all__ = [
+    "NO_MARGINS",
+    "Score",
+    "TrajectoryScore",
+    "evaluate",
+    "finite",
+    "joint_controller",
+    "joint_gains_text",
+    "make_loop",
+    "margin_fields",
+    "osc_plan",
+    "plan_controller",
+    "score_joint_baseline",
+    "score_osc_baseline",
+    "score_plan",
+    "trajectory_error",
+]
+
 
 @dataclass(frozen=True)
 class TrajectoryScore:

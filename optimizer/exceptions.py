@@ -2,6 +2,15 @@
 
 from __future__ import annotations
 
+__all__ = [
+    "InputError",
+    "PlanError",
+    "ProblemError",
+    "SimulationError",
+    "TierplanError",
+    "printable",
+]
+
 
 class TierplanError(Exception):
     """Base class of every error this package raises on purpose."""

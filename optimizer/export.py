@@ -29,6 +29,15 @@ from .plan import Plan, Tier
 from .problem import Problem
 from .runtime import TierLaw
 
+__all__ = [
+    "CHECK_CPP",
+    "CHECK_TOL",
+    "export_files",
+    "header_text",
+    "plan_from_header",
+    "test_vectors",
+]
+
 #: Largest relative deviation check.cpp accepts.
 CHECK_TOL = 1e-9
 

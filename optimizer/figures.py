@@ -23,6 +23,28 @@ from matplotlib.figure import Figure
 from .fit import ActuatorFit, FrequencyLog, Log, TimeLog, simulate_time
 from .simulate import Rollout
 
+__all__ = [
+    "BEST",
+    "DATA",
+    "JOINT",
+    "OSC",
+    "TIER_COLORS",
+    "error_figure",
+    "fit_figure",
+    "history_figure",
+    "margin_figure",
+    "pareto_figure",
+    "plan_colors",
+    "robustness_figure",
+    "save",
+    "spectrum_figure",
+    "tornado_figure",
+    "torque_figure",
+    "torque_psd",
+    "upgrade_figure",
+    "validation_figure",
+]
+
 BEST = "#1f5fa8"
 OSC = "#c43c2f"
 JOINT = "#6b6b6b"

@@ -42,6 +42,31 @@ import scipy.signal
 from .actuators import ActuatorModel, make_model
 from .exceptions import InputError
 
+__all__ = [
+    "BIC_MARGIN",
+    "FIT_MODELS",
+    "FREQUENCY_COLUMNS",
+    "MIN_EXPLAINED",
+    "MIN_POINTS",
+    "REFINEMENTS",
+    "REFINE_UNITS",
+    "TIME_COLUMNS",
+    "VALUE_BOUNDS",
+    "ActuatorFit",
+    "FrequencyLog",
+    "Log",
+    "LogError",
+    "Progress",
+    "TimeLog",
+    "fit_auto",
+    "fit_model",
+    "fit_work",
+    "lag_phase_deg",
+    "lag_response",
+    "read_log",
+    "simulate_time",
+]
+
 FREQUENCY_COLUMNS = ("frequency_hz", "magnitude_db", "phase_deg")
 TIME_COLUMNS = ("time_s", "commanded_nm", "measured_nm")
 FIT_MODELS = ("first_order", "second_order")

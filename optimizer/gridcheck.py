@@ -21,6 +21,15 @@ from .plan import Plan, Tier
 from .problem import Problem
 from .search import PENALTY, quiet_optuna
 
+__all__ = [
+    "Point",
+    "TinySpace",
+    "evals_to_within",
+    "sampler_trace",
+    "table",
+    "tiny_space",
+]
+
 Point = tuple[int, ...]
 
 

@@ -13,6 +13,12 @@ from pathlib import Path
 
 from .exceptions import InputError
 
+__all__ = [
+    "LIMITS",
+    "read_bytes",
+    "read_text",
+]
+
 #: Largest file of each kind the tool reads [bytes].
 LIMITS = {
     "problem": 2 * 2**20,

@@ -16,6 +16,11 @@ from pathlib import Path
 from optuna.storages import JournalStorage
 from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
 
+__all__ = [
+    "FlockLock",
+    "journal_storage",
+]
+
 try:
     import fcntl
 except ImportError:  # pragma: no cover - not on POSIX

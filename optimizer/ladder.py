@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -40,6 +40,34 @@ from .plan import Plan, Tier
 from .problem import Problem
 from .stability import home_check
 
+__all__ = [
+    "DEVIATION_RANGE",
+    "FRACTION",
+    "FRACTION_RANGE",
+    "K_RANGE",
+    "K_TOL",
+    "MIN_GAIN_STEP",
+    "OSC_RATIOS",
+    "RATIO_RANGE",
+    "ZETA",
+    "Rung",
+    "bandwidth_cuts",
+    "bandwidth_order",
+    "gain_ladder",
+    "highest_stiffness",
+    "informed_joint_gains",
+    "informed_osc",
+    "joint_boundary",
+    "joint_from_coords",
+    "joint_gain_shape",
+    "joint_to_coords",
+    "ladder_variants",
+    "osc_boundary",
+    "osc_from_coords",
+    "osc_to_coords",
+    "suggested_plan",
+]
+
 #: Share of each rung's (or baseline's) stiffness limit used in suggested gains [-].
 FRACTION = 0.7
 #: A rung becomes a tier when its limit is at least this factor over the tier below [-].
@@ -49,6 +77,21 @@ ZETA = 0.8
 #: Range of stiffness searched for a limit [1/s²], and its relative resolution.
 K_RANGE = (1.0, 1e6)
 K_TOL = 0.03
+
+
+def bandwidth_order(problem: Problem, joints: Sequence[int]) -> list[int]:
+    """``joints`` from the slowest to the fastest actuator (stable for ties)."""
+    bw = [problem.actuators[j].model.bandwidth_hz() for j in joints]
+    return [j for _, j in sorted(zip(bw, joints, strict=True), key=lambda x: x[0])]
+
+
+def bandwidth_cuts(problem: Problem, joints: Sequence[int]) -> list[list[int]]:
+    """The strict subsets of ``joints`` a ranked tier may keep: those whose drives are at
+    least as fast as a cut, for every cut above the slowest drive among ``joints`` (drives
+    of equal bandwidth stay together). Largest first."""
+    bw = {j: problem.actuators[j].model.bandwidth_hz() for j in joints}
+    levels = sorted(set(bw.values()))
+    return [sorted(j for j in joints if bw[j] >= cut) for cut in levels[1:]]
 
 
 @dataclass(frozen=True)
@@ -107,7 +150,6 @@ def _rotation_axes(control: ControlSettings) -> int:
 
 def gain_ladder(problem: Problem) -> list[Rung]:
     """The rungs from every joint to the fastest group (see the module docstring)."""
-    from .search import bandwidth_cuts
 
     n = problem.arm.n
     names = problem.arm.joint_names

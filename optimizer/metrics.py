@@ -8,6 +8,13 @@ import numpy as np
 
 from .simulate import Rollout
 
+__all__ = [
+    "TrackMetrics",
+    "iso_path_figures",
+    "plane_crossings",
+    "track_metrics",
+]
+
 
 @dataclass(frozen=True)
 class TrackMetrics:

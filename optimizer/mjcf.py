@@ -34,6 +34,16 @@ import numpy as np
 from .arm import MAX_LINKS, MAX_XML_DEPTH, refuse_declarations, sanitize_urdf, xml_depth
 from .exceptions import ProblemError
 
+__all__ = [
+    "BODY_CHILDREN_IGNORED",
+    "IGNORED_TOP",
+    "REFUSED_TOP",
+    "UNLIMITED",
+    "WORLD",
+    "mjcf_to_urdf",
+    "read_mjcf",
+]
+
 #: Name of the URDF root link that stands for MJCF's world body.
 WORLD = "world"
 #: Limit written for a joint without a range [rad or m]: in effect none.

@@ -27,6 +27,15 @@ from typing import Any
 from .exceptions import PlanError
 from .tomlio import TableReader, load_toml, suggestion
 
+__all__ = [
+    "LAWS",
+    "Plan",
+    "Tier",
+    "load_plan",
+    "parse_plan",
+    "single_tier",
+]
+
 
 @dataclass(frozen=True)
 class Tier:

@@ -37,6 +37,26 @@ from .trajectories import (
     sample,
 )
 
+__all__ = [
+    "MAX_RATE_HZ",
+    "MAX_TICKS",
+    "MIN_RATE_HZ",
+    "MODEL_KEYS",
+    "REACH_POS_M",
+    "REACH_ROT_RAD",
+    "SAFE_NAME",
+    "BaselineGains",
+    "PerturbSpread",
+    "Problem",
+    "Scoring",
+    "SearchSpace",
+    "TrajectorySpec",
+    "apply_actuator_file",
+    "check_reachable",
+    "load_problem",
+    "parse_problem",
+]
+
 log = logging.getLogger(__name__)
 
 #: What a problem's name may be (it names a folder under results/).

@@ -17,6 +17,35 @@ from .problem import Problem
 from .ranking import Entry
 from .robust import RobustScore
 
+__all__ = [
+    "MARGIN_COLS",
+    "MARGIN_LEGEND",
+    "SAFETY_FULL",
+    "SAFETY_SHORT",
+    "HasMargins",
+    "change",
+    "check_table",
+    "console",
+    "fmt",
+    "ladder_table",
+    "margin_cells",
+    "margin_text",
+    "margin_texts",
+    "percent",
+    "plan_legend",
+    "plant_line",
+    "ranking_table",
+    "reasons",
+    "robust_table",
+    "robustness_table",
+    "score_table",
+    "scores_json",
+    "sensitivity_table",
+    "swap_table",
+    "tier_moves",
+    "upgrade_table",
+]
+
 SAFETY_SHORT = (
     "Simulation only. Unmodelled friction, elasticity, noise and delay can destabilise gains "
     "that pass here. First hardware trials at reduced speed, gains and torque limits, with a "

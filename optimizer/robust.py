@@ -28,6 +28,16 @@ from .control import Controller
 from .evaluate import Score, evaluate
 from .problem import Problem
 
+__all__ = [
+    "STATISTICS",
+    "RobustScore",
+    "corner_plant",
+    "evaluate_robust",
+    "perturbed",
+    "plant_set",
+    "statistic",
+]
+
 #: Statistics a robust objective may use.
 STATISTICS = ("p90", "worst", "mean")
 

@@ -26,6 +26,18 @@ from .exceptions import InputError
 from .simulate import Rollout
 from .trajectories import Reference
 
+__all__ = [
+    "POSE",
+    "POSE_REF",
+    "RunLog",
+    "columns",
+    "position_error_mm",
+    "read_run_log",
+    "rollout_csv",
+    "rotation_error_deg",
+    "safe_name",
+]
+
 POSE = ("x_m", "y_m", "z_m", "rx_rad", "ry_rad", "rz_rad")
 POSE_REF = ("x_ref_m", "y_ref_m", "z_ref_m", "rx_ref_rad", "ry_ref_rad", "rz_ref_rad")
 

@@ -24,6 +24,24 @@ from .robust import RobustScore, evaluate_robust, plant_set
 from .rundir import RANKING_JSON, REPORT, RUN_JSON, RunFolder, plan_path
 from .simulate import Rollout
 
+__all__ = [
+    "REPRODUCED",
+    "changed_since",
+    "mismatches",
+    "problem_paragraph",
+    "ranking_markdown",
+    "rebuild",
+    "report_text",
+    "rescore",
+    "result_sentences",
+    "robustness_markdown",
+    "roles",
+    "rollout_figures",
+    "run_problem",
+    "swap_markdown",
+    "write_report",
+]
+
 #: Figures of a ranked entry that ``score --from`` must reproduce exactly.
 REPRODUCED = (
     "error_index",

@@ -31,6 +31,26 @@ from .ranking import Entry, rank, relative
 from .robust import evaluate_robust, plant_set
 from .tomlio import tomllib
 
+__all__ = [
+    "CONVERGED_GAIN",
+    "SEEDED_SOURCES",
+    "RunResult",
+    "RunSettings",
+    "Seeded",
+    "SwapBasis",
+    "baseline_seeds",
+    "convergence_note",
+    "previous_plans",
+    "refresh_run",
+    "run_record",
+    "run_studies",
+    "score_robust",
+    "swap_basis",
+    "tier_depth",
+    "trial_rows",
+    "write_run",
+]
+
 
 @dataclass(frozen=True)
 class RunSettings:

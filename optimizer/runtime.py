@@ -23,6 +23,10 @@ from .plan import Plan
 from .problem import Problem
 from .trajectories import Reference
 
+__all__ = [
+    "TierLaw",
+]
+
 
 class TierLaw:
     """A plan's tiered law on a problem's arm, one command per call."""

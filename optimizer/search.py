@@ -51,6 +51,45 @@ from .ranking import Entry
 from .robust import RobustScore, evaluate_robust, plant_set
 from .stability import LinearLoop, Margins
 
+__all__ = [
+    "CONSTRAINT",
+    "GRACE_S",
+    "HEARTBEAT_S",
+    "HOST",
+    "KINDS",
+    "PENALTY",
+    "SAMPLERS",
+    "STALE_S",
+    "STOP_GRACE_S",
+    "STUDY_SAMPLER",
+    "Budget",
+    "WorkerJob",
+    "abandon_own",
+    "abandoned",
+    "best_value",
+    "clip_to_space",
+    "entries",
+    "feasible",
+    "finished",
+    "fresh_seed",
+    "late_gain",
+    "make_sampler",
+    "objective",
+    "open_storage",
+    "open_study",
+    "penalty",
+    "plan_params",
+    "quiet_optuna",
+    "reclaim",
+    "redact",
+    "run_search",
+    "run_worker",
+    "study_options",
+    "suggest_plan",
+    "worker_pool",
+    "worker_start",
+]
+
 log = logging.getLogger(__name__)
 
 #: Objective value of a trial that diverged or failed the pre-check (finite, for TPE).
@@ -89,21 +128,6 @@ def quiet_optuna() -> None:
 
 
 # -- search space ------------------------------------------------------------------
-def _bandwidth_order(problem: Problem, joints: Sequence[int]) -> list[int]:
-    """``joints`` from the slowest to the fastest actuator (stable for ties)."""
-    bw = [problem.actuators[j].model.bandwidth_hz() for j in joints]
-    return [j for _, j in sorted(zip(bw, joints, strict=True), key=lambda x: x[0])]
-
-
-def bandwidth_cuts(problem: Problem, joints: Sequence[int]) -> list[list[int]]:
-    """The strict subsets of ``joints`` a ranked tier may keep: those whose drives are at
-    least as fast as a cut, for every cut above the slowest drive among ``joints`` (drives
-    of equal bandwidth stay together). Largest first."""
-    bw = {j: problem.actuators[j].model.bandwidth_hz() for j in joints}
-    levels = sorted(set(bw.values()))
-    return [sorted(j for j in joints if bw[j] >= cut) for cut in levels[1:]]
-
-
 def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
     """Define-by-run plan: tier count, nested or ranked subsets, per-tier parts and gains."""
     sp = problem.search
@@ -123,7 +147,7 @@ def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
         if len(prev) < 2:
             break  # no strict non-empty subset left
         if sp.subset_mode == "ranked":
-            cuts = bandwidth_cuts(problem, prev)
+            cuts = ladder.bandwidth_cuts(problem, prev)
             if not cuts:
                 break  # every joint left has the same bandwidth: no faster subset
             joints = cuts[trial.suggest_int(f"t{k}_cut", 1, len(cuts)) - 1]
@@ -131,7 +155,7 @@ def suggest_plan(trial: optuna.trial.BaseTrial, problem: Problem) -> Plan:
             joints = [
                 j for j in prev if trial.suggest_categorical(f"t{k}_{names[j]}", [True, False])
             ]
-            order = _bandwidth_order(problem, prev)
+            order = ladder.bandwidth_order(problem, prev)
             if not joints:  # repair: the fastest joint of the previous tier
                 joints = [order[-1]]
             elif len(joints) == len(prev):  # repair: drop the slowest
@@ -189,7 +213,7 @@ def plan_params(plan: Plan, problem: Problem) -> dict[str, Any] | None:
         if not set(tier.joints) < set(prev):
             return None
         if sp.subset_mode == "ranked":
-            cuts = bandwidth_cuts(problem, prev)
+            cuts = ladder.bandwidth_cuts(problem, prev)
             if list(tier.joints) not in cuts:
                 return None
             params[f"t{k}_cut"] = cuts.index(list(tier.joints)) + 1

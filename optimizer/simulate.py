@@ -29,6 +29,14 @@ from .arm import Arm
 from .control import Controller
 from .trajectories import Reference
 
+__all__ = [
+    "V_EPS",
+    "ClosedLoop",
+    "LoopState",
+    "Rollout",
+    "SimSettings",
+]
+
 #: Default width of the Coulomb smoothing [rad/s]; widened per joint where needed.
 V_EPS = 0.01
 

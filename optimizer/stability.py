@@ -44,6 +44,24 @@ from .exceptions import SimulationError
 from .simulate import ClosedLoop, LoopState
 from .trajectories import Reference
 
+__all__ = [
+    "BANDWIDTH_CAP",
+    "DELAY_CAP_STATES",
+    "DELAY_CAP_TICKS",
+    "DELAY_TOL_TICKS",
+    "FACTOR_TOL",
+    "STIFFNESS_CAP",
+    "LinearLoop",
+    "MarginLimits",
+    "Margins",
+    "delay_cap_ticks",
+    "home_check",
+    "jacobian_fd",
+    "loop_margins",
+    "spectral_radius",
+    "unstable_instant",
+]
+
 #: Largest factors and extra delay the margin searches look at; a margin at its cap
 #: means "at least this much".
 STIFFNESS_CAP = 100.0

@@ -12,6 +12,13 @@ from typing import Any
 
 from .exceptions import InputError
 
+__all__ = [
+    "TableReader",
+    "load_toml",
+    "suggestion",
+    "tomllib",
+]
+
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover

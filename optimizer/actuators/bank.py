@@ -20,6 +20,12 @@ import scipy.linalg
 
 from .base import JointActuator
 
+__all__ = [
+    "DiscreteBank",
+    "continuous_bank",
+    "discretize",
+]
+
 
 @dataclass(frozen=True)
 class DiscreteBank:

@@ -8,6 +8,15 @@ from typing import ClassVar, Protocol
 
 import numpy as np
 
+__all__ = [
+    "MAX_DAMPING_RATIO",
+    "MAX_MODEL_HZ",
+    "ActuatorModel",
+    "JointActuator",
+    "ModelParameterError",
+    "check_positive_finite",
+]
+
 
 class ActuatorModel(Protocol):
     """A linear SISO model from commanded to delivered torque, unit DC gain.

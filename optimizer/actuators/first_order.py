@@ -10,6 +10,10 @@ import numpy as np
 
 from .base import MAX_MODEL_HZ, check_positive_finite
 
+__all__ = [
+    "FirstOrder",
+]
+
 
 @dataclass(frozen=True)
 class FirstOrder:

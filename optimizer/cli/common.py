@@ -7,6 +7,26 @@ import argparse
 import sys
 from pathlib import Path
 
+__all__ = [
+    "EXIT_FAILED",
+    "EXIT_INPUT",
+    "EXIT_INTERRUPTED",
+    "EXIT_OK",
+    "budgets_of",
+    "console_for",
+    "finish",
+    "joint_for",
+    "load_problem_file",
+    "parse_objectives",
+    "plants_line",
+    "refresh_option",
+    "report_if",
+    "run_and_show",
+    "search_options",
+    "settings_from",
+    "tiered_for",
+]
+
 EXIT_OK = 0
 EXIT_FAILED = 1
 EXIT_INPUT = 2

@@ -7,6 +7,11 @@ from pathlib import Path
 
 from .common import EXIT_OK, console_for, load_problem_file
 
+__all__ = [
+    "add",
+    "run",
+]
+
 
 def add(sub: argparse._SubParsersAction) -> None:
     """The command's options."""

@@ -10,6 +10,12 @@ from pathlib import Path
 from ..exceptions import InputError
 from .common import EXIT_INPUT, EXIT_OK
 
+__all__ = [
+    "LONG_LOG_SAMPLES",
+    "add",
+    "run",
+]
+
 
 def add(sub: argparse._SubParsersAction) -> None:
     """The command's options."""

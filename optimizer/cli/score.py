@@ -19,6 +19,11 @@ from .common import (
     tiered_for,
 )
 
+__all__ = [
+    "add",
+    "run",
+]
+
 
 def add(sub: argparse._SubParsersAction) -> None:
     """The command's options."""

@@ -8,6 +8,11 @@ from pathlib import Path
 from ..exceptions import InputError
 from .common import EXIT_OK, console_for
 
+__all__ = [
+    "add",
+    "run",
+]
+
 
 def add(sub: argparse._SubParsersAction) -> None:
     """The command's options."""

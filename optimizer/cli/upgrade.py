@@ -9,6 +9,11 @@ from pathlib import Path
 from ..exceptions import InputError
 from .common import EXIT_INPUT, EXIT_OK, console_for, load_problem_file
 
+__all__ = [
+    "add",
+    "run",
+]
+
 
 def add(sub: argparse._SubParsersAction) -> None:
     """The command's options."""

@@ -9,6 +9,12 @@ import numpy as np
 
 from ..trajectories import Reference
 
+__all__ = [
+    "AXES",
+    "ControlSettings",
+    "Controller",
+]
+
 #: Task axes by the names used in problem files, in J's row order.
 AXES = ("x", "y", "z", "rx", "ry", "rz")
 

@@ -35,6 +35,19 @@ from dataclasses import dataclass
 
 import numpy as np
 
+__all__ = [
+    "DEFAULT_SOLVER",
+    "PRIORITY",
+    "QP_SOLVERS",
+    "BoundedQP",
+    "TierBlock",
+    "build_qp",
+    "kkt_residuals",
+    "multipliers",
+    "solve_qp",
+    "tier_hessian",
+]
+
 #: Cost ratio between consecutive tiers (earlier tiers kept first).
 PRIORITY = 1e3
 

@@ -23,6 +23,14 @@ from ..trajectories import Reference
 from . import kernels
 from .base import ControlSettings
 
+__all__ = [
+    "ClikSolution",
+    "JointSpaceController",
+    "clik",
+    "clik_cached",
+    "dls",
+]
+
 
 @dataclass(frozen=True)
 class ClikSolution:

@@ -14,6 +14,17 @@ from numba import njit
 
 from ..jit import writable_cache
 
+__all__ = [
+    "OK",
+    "SINGULAR",
+    "bounded_qp",
+    "cho_solve_vec",
+    "cholesky",
+    "log3",
+    "tier_solve",
+    "tiered_command",
+]
+
 writable_cache(Path(__file__).resolve().parent / "__pycache__")
 
 OK = 0

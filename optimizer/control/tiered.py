@@ -35,6 +35,13 @@ from ..trajectories import Reference
 from . import kernels
 from .base import ControlSettings
 
+__all__ = [
+    "TieredController",
+    "null_projector_t",
+    "osc_torque",
+    "tier_torque",
+]
+
 
 def tier_torque(
     Minv: np.ndarray, J: np.ndarray, joints: np.ndarray, a: np.ndarray, lam: float = 0.0

@@ -7,6 +7,15 @@ from typing import ClassVar, Protocol
 
 import numpy as np
 
+__all__ = [
+    "Reference",
+    "TrajectoryKind",
+    "axis_angle_matrices",
+    "no_rotation",
+    "smooth_phase",
+    "unit",
+]
+
 
 @dataclass(frozen=True)
 class Reference:

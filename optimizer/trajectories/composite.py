@@ -13,6 +13,12 @@ from scipy.spatial.transform import Rotation, RotationSpline
 
 from .simple import Offsets
 
+__all__ = [
+    "CSV_COLUMNS",
+    "Combined",
+    "CsvPoses",
+]
+
 #: Header a pose CSV must have, in this order.
 CSV_COLUMNS = ("time_s", "x_m", "y_m", "z_m", "rx_rad", "ry_rad", "rz_rad")
 

@@ -9,6 +9,15 @@ import numpy as np
 
 from .base import axis_angle_matrices, no_rotation, smooth_phase, unit
 
+__all__ = [
+    "Circle",
+    "Hold",
+    "Line",
+    "Offsets",
+    "Rotate",
+    "Sine",
+]
+
 Offsets = tuple[np.ndarray, np.ndarray, np.ndarray, "np.ndarray | None", np.ndarray, np.ndarray]
 
 
