@@ -28,11 +28,7 @@ from .simulate import SimSettings
 from .stability import MarginLimits
 from .tomlio import TableReader, load_toml, suggestion
 from .trajectories import (
-    ROTATION_KINDS,
     TRAJECTORY_KINDS,
-    TRANSLATION_KINDS,
-    Combined,
-    CsvPoses,
     Reference,
     sample,
 )
@@ -789,20 +785,10 @@ def _read_kind(t: TableReader, kind: str, allowed: Sequence[str], base: Path, pa
             "kind", f"'{kind}' is not one of {', '.join(allowed)}{suggestion(kind, allowed)}"
         )
     cls = TRAJECTORY_KINDS[kind]
-    if cls is CsvPoses:
-        f = t.str("file")
-        try:
-            return CsvPoses.from_file((base / f).resolve())
-        except ValueError as err:
-            raise t.fail("file", str(err)) from err
-    if cls is Combined:
-        tt = t.table("translation", required=True)
-        tr = t.table("rotation", required=True)
-        trans = _read_kind(tt, tt.str("kind"), TRANSLATION_KINDS, base, path)
-        rot = _read_kind(tr, tr.str("kind"), ROTATION_KINDS, base, path)
-        tt.done()
-        tr.done()
-        return Combined(trans, rot)
+    if hasattr(cls, "from_table"):  # a kind with parts or a file reads its own table
+        return cls.from_table(
+            t, lambda part, kinds: _read_kind(part, part.str("kind"), kinds, base, path), base
+        )
     args: dict[str, Any] = {}
     for f in dataclasses.fields(cls):
         has_default = f.default is not dataclasses.MISSING

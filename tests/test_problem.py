@@ -104,3 +104,27 @@ def test_an_actuator_file_changes_the_named_joints_and_the_digest(tmp_path: Path
     assert sh.coulomb_nm == 1.0  # kept from the problem file
     assert p.digest != base.digest and len(p.digest) == 64
     assert load_problem(PLANAR, check_reach=False).digest == base.digest  # same files, same
+
+
+def test_kinds_that_read_their_own_table(tmp_path: Path) -> None:
+    """A pose CSV beside the problem file and a combined trajectory, through the loader."""
+    (tmp_path / "poses.csv").write_text(
+        "time_s,x_m,y_m,z_m,rx_rad,ry_rad,rz_rad\n0,0,0,0,0,0,0\n0.5,0.01,0,0.02,0,0.05,0\n"
+        "1.0,0.02,0,0.0,0,0,0\n"
+    )
+    poses = '[[trajectory]]\nname = "poses"\nkind = "csv"\nduration_s = 1.2\nfile = "poses.csv"\n'
+    f = planar_variant(tmp_path, ("[search]", poses + "\n[search]"))
+    p = load_problem(f, check_reach=False)
+    assert [t.kind.kind for t in p.trajectories] == ["line", "combined", "csv"]
+    ref = p.references[2]
+    p0, _ = p.arm.tip_pose(p.arm.home)
+    assert np.allclose(ref.p[0], p0) and np.allclose(ref.p[500], p0 + [0.01, 0.0, 0.02])
+    assert p.trajectories[1].kind.rotation.kind == "rotate"
+    (tmp_path / "poses.csv").write_text("time_s,x_m\n0,0\n")
+    with pytest.raises(ProblemError) as err:
+        load_problem(f, check_reach=False)
+    assert err.value.key == "trajectory[2].file"
+    bad = planar_variant(tmp_path, ('kind = "rotate"\naxis', 'kind = "sine"\naxis'))
+    with pytest.raises(ProblemError) as err:
+        load_problem(bad, check_reach=False)
+    assert err.value.key == "trajectory[1].rotation.kind" and "rotate" in err.value.reason

@@ -7,16 +7,14 @@ from typing import Any
 import numpy as np
 
 from .base import Reference, TrajectoryKind, smooth_phase
-from .composite import CSV_COLUMNS, Combined, CsvPoses
+from .composite import CSV_COLUMNS, ROTATION_KINDS, TRANSLATION_KINDS, Combined, CsvPoses
 from .simple import Circle, Hold, Line, Rotate, Sine
 
-#: Kinds by the name used in problem files.
+#: Kinds by the name used in problem files. A kind is read from its table field by field
+#: (floats; 3-tuples for vectors), unless it has ``from_table(t, read_part, base)``.
 TRAJECTORY_KINDS: dict[str, type[Any]] = {
     k.kind: k for k in (Hold, Line, Circle, Sine, Rotate, Combined, CsvPoses)
 }
-#: Kinds a ``combined`` trajectory may use for each of its parts.
-TRANSLATION_KINDS = ("line", "circle", "sine")
-ROTATION_KINDS = ("rotate",)
 
 
 def sample(

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, ClassVar
@@ -15,9 +16,19 @@ from .simple import Offsets
 
 __all__ = [
     "CSV_COLUMNS",
+    "ROTATION_KINDS",
+    "TRANSLATION_KINDS",
     "Combined",
     "CsvPoses",
+    "ReadPart",
 ]
+
+#: Kinds a ``combined`` trajectory may use for each of its parts.
+TRANSLATION_KINDS = ("line", "circle", "sine")
+ROTATION_KINDS = ("rotate",)
+
+#: How a kind with parts reads one: (its table, the kinds allowed there) -> a kind.
+ReadPart = Callable[[Any, Sequence[str]], Any]
 
 #: Header a pose CSV must have, in this order.
 CSV_COLUMNS = ("time_s", "x_m", "y_m", "z_m", "rx_rad", "ry_rad", "rz_rad")
@@ -32,6 +43,18 @@ class Combined:
     rotation: Any
     """A rotation trajectory kind."""
     kind: ClassVar[str] = "combined"
+
+    @classmethod
+    def from_table(cls, t: Any, read_part: ReadPart, base: Path) -> Combined:
+        """From its problem-file table: ``[trajectory.translation]`` and
+        ``[trajectory.rotation]``, each read by ``read_part`` (a TableReader ``t``)."""
+        tt = t.table("translation", required=True)
+        tr = t.table("rotation", required=True)
+        trans = read_part(tt, TRANSLATION_KINDS)
+        rot = read_part(tr, ROTATION_KINDS)
+        tt.done()
+        tr.done()
+        return cls(trans, rot)
 
     def offsets(self, t: np.ndarray, R0: np.ndarray) -> Offsets:
         dp, dv, da, _, _, _ = self.translation.offsets(t, R0)
@@ -55,6 +78,15 @@ class CsvPoses:
     rotvec: np.ndarray = field(repr=False)
     """Rotation vectors (K, 3) [rad]."""
     kind: ClassVar[str] = "csv"
+
+    @classmethod
+    def from_table(cls, t: Any, read_part: ReadPart, base: Path) -> CsvPoses:
+        """From its problem-file table: ``file``, a pose CSV relative to ``base``."""
+        f = t.str("file")
+        try:
+            return cls.from_file((base / f).resolve())
+        except ValueError as err:
+            raise t.fail("file", str(err)) from err
 
     @classmethod
     def from_file(cls, path: Path) -> CsvPoses:
