@@ -265,6 +265,7 @@ class LinearLoop:
         self._banks: dict[float, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {
             1.0: (bank.Ad, bank.Bd, bank.Cm, bank.Dm)
         }
+        self._own_radius: float | None = None
 
     def _mech_map(self, z: np.ndarray) -> np.ndarray:
         """(q, v, delivered torque) ↦ (q, v) after one substep: friction, ABA, Euler."""
@@ -342,32 +343,49 @@ class LinearLoop:
     def radius(
         self, stiffness: float = 1.0, extra_delay: float = 0.0, bandwidth: float = 1.0
     ) -> float:
-        """Spectral radius of ``matrix`` with those factors."""
-        return spectral_radius(self.matrix(stiffness, extra_delay, bandwidth))
+        """Spectral radius of ``matrix`` with those factors (at the plan's own gains it is
+        computed once: every margin search starts there)."""
+        own = stiffness == 1.0 and extra_delay == 0.0 and bandwidth == 1.0
+        if own and self._own_radius is not None:
+            return self._own_radius
+        r = spectral_radius(self.matrix(stiffness, extra_delay, bandwidth))
+        if own:
+            self._own_radius = r
+        return r
 
     def stable(self, **kw: float) -> bool:
         """Whether the one-tick matrix with those factors has ρ < 1."""
         return self.radius(**kw) < 1.0
 
     # -- margins -----------------------------------------------------------------------
-    def stiffness_margin(self, cap: float = STIFFNESS_CAP, probe: float = math.nan) -> float:
+    def stiffness_margin(
+        self, cap: float = STIFFNESS_CAP, probe: float = math.nan, floor: float = math.inf
+    ) -> float:
         """Largest stiffness factor (ζ held) with the loop stable [-]; 0 when none ≥ 1e-3.
 
         ``probe`` (a minimum to be met) is decided exactly when it falls in the last bracket.
+        ``floor``: once the margin is known to be at least this, the search stops and
+        returns a value ≥ ``floor`` (the worst over several instants needs no more).
         """
-        return _factor_margin(lambda s: self.radius(stiffness=s), cap, 1.5, probe)
+        return _factor_margin(lambda s: self.radius(stiffness=s), cap, 1.5, probe, floor)
 
-    def bandwidth_margin(self, cap: float = BANDWIDTH_CAP, probe: float = math.nan) -> float:
-        """Largest factor by which every actuator may slow down with the loop stable [-]."""
-        return _factor_margin(lambda b: self.radius(bandwidth=b), cap, 1.3, probe)
+    def bandwidth_margin(
+        self, cap: float = BANDWIDTH_CAP, probe: float = math.nan, floor: float = math.inf
+    ) -> float:
+        """Largest factor by which every actuator may slow down with the loop stable [-];
+        ``probe`` and ``floor`` as in stiffness_margin."""
+        return _factor_margin(lambda b: self.radius(bandwidth=b), cap, 1.3, probe, floor)
 
     def delay_cap_ticks(self) -> int:
         """Largest extra delay the margin search looks at [ticks]."""
         return delay_cap_ticks(self.loop)
 
-    def delay_margin_ticks(self, cap: int | None = None, probe: float = math.nan) -> float:
+    def delay_margin_ticks(
+        self, cap: int | None = None, probe: float = math.nan, floor: float = math.inf
+    ) -> float:
         """Largest extra delay on every joint with the loop stable [ticks]; ``cap`` when
-        stable up to it (default ``delay_cap_ticks``); ``probe`` as in stiffness_margin."""
+        stable up to it (default ``delay_cap_ticks``); ``probe`` and ``floor`` as in
+        stiffness_margin."""
         cap = self.delay_cap_ticks() if cap is None else cap
         r0 = self.radius()
         if not r0 < 1.0:
@@ -377,9 +395,11 @@ class LinearLoop:
             lo, r_lo = hi, r
             if hi >= cap:
                 return float(cap)
+            if lo >= floor:
+                return float(lo)
             hi = min(2 * hi, cap)
         r_hi = r
-        while hi - lo > 1:
+        while hi - lo > 1 and not lo >= floor:
             mid = (lo + hi) // 2
             r = self.radius(extra_delay=mid)
             if r < 1.0:
@@ -388,28 +408,35 @@ class LinearLoop:
                 hi, r_hi = mid, r
         return _crossing(
             lambda e: self.radius(extra_delay=e), float(lo), float(hi), r_lo, r_hi,
-            lambda a, b: b - a <= DELAY_TOL_TICKS, log=False, probe=probe,
+            lambda a, b: b - a <= DELAY_TOL_TICKS, log=False, probe=probe, floor=floor,
         )
 
     def margins(
         self,
         which: Sequence[str] = ("stiffness", "delay", "bandwidth"),
         limits: MarginLimits | None = None,
+        floor: Margins | None = None,
     ) -> Margins:
         """The margins named in ``which`` (the others are nan) and the slowest mode; with
-        ``limits``, a margin close to its minimum is decided exactly at the minimum."""
+        ``limits``, a margin close to its minimum is decided exactly at the minimum. With
+        ``floor`` (the worst of other instants so far), a margin known to be at least the
+        floor's is not located further: it is returned as that lower bound, so the worst
+        over the instants comes out exactly as with every margin located."""
+        fl = floor or Margins(math.inf, math.inf, math.inf, math.nan, math.nan)
+        fs, fd, fb = (math.inf if math.isnan(x) else x
+                      for x in (fl.stiffness, fl.delay_ms, fl.bandwidth))
         rho = self.radius()
         slow = -self.dt / math.log(rho) if 0.0 < rho < 1.0 else (0.0 if rho == 0 else math.inf)
         lim = limits or MarginLimits(math.nan, math.nan, math.nan)
         ms = self.dt * 1e3
         return Margins(
-            stiffness=self.stiffness_margin(probe=lim.stiffness)
+            stiffness=self.stiffness_margin(probe=lim.stiffness, floor=fs)
             if "stiffness" in which
             else math.nan,
-            delay_ms=self.delay_margin_ticks(probe=lim.delay_ms / ms) * ms
+            delay_ms=self.delay_margin_ticks(probe=lim.delay_ms / ms, floor=fd / ms) * ms
             if "delay" in which
             else math.nan,
-            bandwidth=self.bandwidth_margin(probe=lim.bandwidth)
+            bandwidth=self.bandwidth_margin(probe=lim.bandwidth, floor=fb)
             if "bandwidth" in which
             else math.nan,
             slowest_mode_s=slow,
@@ -447,17 +474,26 @@ def _ladder(top: float) -> list[float]:
 
 
 def _factor_margin(
-    radius: Callable[[float], float], cap: float, step: float, probe: float = math.nan
+    radius: Callable[[float], float],
+    cap: float,
+    step: float,
+    probe: float = math.nan,
+    floor: float = math.inf,
 ) -> float:
     """Largest factor x with ``radius(x) < 1``, the first loss scanning from 1 (up, or
-    down when 1 is unstable) in steps of ``step``, then located to FACTOR_TOL."""
+    down when 1 is unstable) in steps of ``step``, then located to FACTOR_TOL; a stable
+    point at or above ``floor`` ends the search there (a lower bound)."""
     r1 = radius(1.0)
     if r1 < 1.0:
+        if floor <= 1.0:
+            return 1.0
         lo, r_lo, hi = 1.0, r1, min(step, cap)
         while (r := radius(hi)) < 1.0:
             if hi >= cap:
                 return cap
             lo, r_lo, hi = hi, r, min(hi * step, cap)
+            if lo >= floor:
+                return lo
         r_hi = r
     else:
         hi, r_hi, lo = 1.0, r1, 1.0 / step
@@ -467,7 +503,8 @@ def _factor_margin(
                 return 0.0
         r_lo = r
     return _crossing(
-        radius, lo, hi, r_lo, r_hi, lambda a, b: b / a <= 1.0 + FACTOR_TOL, probe=probe
+        radius, lo, hi, r_lo, r_hi, lambda a, b: b / a <= 1.0 + FACTOR_TOL, probe=probe,
+        floor=floor,
     )
 
 
@@ -480,13 +517,17 @@ def _crossing(
     done: Callable[[float, float], bool],
     log: bool = True,
     probe: float = math.nan,
+    floor: float = math.inf,
 ) -> float:
     """The stable end of a bracket [lo stable, hi unstable] shrunk until ``done``: regula
     falsi on ρ − 1 (Illinois variant), in log x when ``log``, with a bisection whenever
     the guess would not cut the bracket by a quarter. A ``probe`` inside the last bracket
-    is evaluated, so that a comparison with it is exact."""
+    is evaluated, so that a comparison with it is exact. Once ``lo`` ≥ ``floor`` it is
+    returned as it is (a lower bound is all the caller needs)."""
     side = 0
     while not done(lo, hi):
+        if lo >= floor:
+            return lo
         a, b = (math.log(lo), math.log(hi)) if log else (lo, hi)
         fa, fb = r_lo - 1.0, r_hi - 1.0
         if side == -1:
@@ -514,7 +555,11 @@ def loop_margins(
 ) -> Margins:
     """Worst margins over the sampled (tick, state) pairs of a rollout (decided exactly at
     the minimums of ``limits`` when close to them)."""
-    return Margins.worst(LinearLoop(loop, k, st).margins(limits=limits) for k, st in samples)
+    worst: Margins | None = None
+    for k, st in samples:
+        m = LinearLoop(loop, k, st).margins(limits=limits, floor=worst)
+        worst = m if worst is None else Margins.worst((worst, m))
+    return worst if worst is not None else Margins.worst(())
 
 
 def unstable_instant(

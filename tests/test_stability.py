@@ -207,3 +207,39 @@ def test_home_check_and_unstable_instant(planar) -> None:
     assert not home_check(stiff, planar.references[0], MarginLimits(1.5, 1.0, 1.1))
     stiff.controller.bind(planar.references[0])
     assert unstable_instant(stiff, [(0, stiff.initial_state())]) == 0
+
+
+def test_the_worst_over_instants_is_the_same_with_floors_and_costs_fewer_solves(demo) -> None:
+    """loop_margins passes the worst margins so far as a floor to the next instant, which
+    then stops locating a margin once it is known to be at least the floor. The worst is
+    the minimum over the instants either way (a located margin is never below a lower
+    bound the search has already passed), so it must equal the minimum of the fully
+    located margins exactly, with fewer spectral radii computed."""
+    from optimizer.stability import Margins, loop_margins
+
+    plan = load_plan(DEMO_PLANS / "three-tier.toml", demo.arm.joint_names)
+    loop = make_loop(demo, plan_controller(demo, plan))
+    ref = demo.references[0]
+    ro = loop.rollout(ref)
+    assert len(ro.snapshots) >= 2
+    limits = demo.scoring.margins
+    calls = {"n": 0}
+    real = LinearLoop.radius
+
+    def counted(self, *a, **kw):  # type: ignore[no-untyped-def]
+        calls["n"] += 1
+        return real(self, *a, **kw)
+
+    full = []
+    LinearLoop.radius = counted  # type: ignore[method-assign]
+    try:
+        for k, st in ro.snapshots:
+            full.append(LinearLoop(loop, k, st).margins(limits=limits))
+        n_full = calls["n"]
+        calls["n"] = 0
+        worst = loop_margins(loop, ro.snapshots, limits)
+        n_floor = calls["n"]
+    finally:
+        LinearLoop.radius = real  # type: ignore[method-assign]
+    assert worst == Margins.worst(full)
+    assert n_floor < n_full
