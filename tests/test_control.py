@@ -87,7 +87,9 @@ def test_kernel_matches_numpy_reference(mj, joints, lam) -> None:
     a = np.array([0.2, -0.4, 1.0, 0.5, 0.1, -0.3])
     ref = tier_torque(Minv, J, np.array(joints), a, lam)
     out = np.zeros(7)
-    status = kernels.tier_solve(Minv, J, np.arange(6), np.array(joints), a, lam, out, np.zeros(400))
+    status = kernels.tier_solve(
+        Minv, J, J @ Minv, np.arange(6), np.array(joints), a, lam, out, np.zeros(400)
+    )
     assert status == kernels.OK
     np.testing.assert_allclose(out, ref, rtol=1e-8, atol=1e-10)
 
@@ -118,7 +120,7 @@ def test_kernel_reports_singular_tier() -> None:
     J = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
     out = np.zeros(3)
     status = kernels.tier_solve(
-        Minv, J, np.arange(2), np.array([2]), np.ones(2), 0.0, out, np.zeros(100)
+        Minv, J, J @ Minv, np.arange(2), np.array([2]), np.ones(2), 0.0, out, np.zeros(100)
     )
     assert status == kernels.SINGULAR
 

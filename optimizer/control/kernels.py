@@ -110,6 +110,7 @@ def cho_solve_vec(L: np.ndarray, b: np.ndarray) -> None:
 def tier_solve(
     Minv: np.ndarray,
     J: np.ndarray,
+    JMi: np.ndarray,
     rows: np.ndarray,
     joints: np.ndarray,
     a: np.ndarray,
@@ -120,6 +121,8 @@ def tier_solve(
     """Add to ``tau`` this tier's τ = Sᵀ W⁻¹ Bᵀ (B W⁻¹ Bᵀ + λI)⁻¹ a (see tiered.py).
 
     ``rows`` index J's task rows, ``joints`` the tier's joints, ``a`` (len(rows),).
+    ``JMi`` is J M⁻¹ (every row and joint), computed once per tick: B = S_rows J M⁻¹ Sᵀ
+    is its block, the same sums in the same order as computing B here.
     When the tier has fewer joints than rows the equal form (BᵀB + λW)⁻¹ Bᵀ a is used.
     ``ws`` is scratch of at least 3·n² + 3·n + 36 floats (n = J.shape[1]).
     """
@@ -141,11 +144,7 @@ def tier_solve(
     for i in range(m):
         r = rows[i]
         for c in range(s):
-            jc = joints[c]
-            acc = 0.0
-            for k in range(J.shape[1]):
-                acc += J[r, k] * Minv[k, jc]
-            B[i, c] = acc
+            B[i, c] = JMi[r, joints[c]]
     for i in range(s):
         for c in range(s):
             W[i, c] = Minv[joints[i], joints[c]]
@@ -304,6 +303,12 @@ def tiered_command(
             acc -= J6[ax, c] * vm[c]
         ed[i] = acc
         ff[i] = ref[18 + ax] - dJv6[ax]
+    for i in range(m):  # J M⁻¹: every tier's B is a block of it, the null space uses it
+        for c in range(n):
+            acc = 0.0
+            for r in range(n):
+                acc += J[i, r] * Minv[r, c]
+            JMi[i, c] = acc
     for i in range(n):
         tau[i] = 0.0
     pi = 3 + m
@@ -327,7 +332,7 @@ def tiered_command(
         tk = tier_tau[t]
         for i in range(n):
             tk[i] = 0.0
-        status = tier_solve(Minv, J, rows, joints, at, lam, tk, scratch)
+        status = tier_solve(Minv, J, JMi, rows, joints, at, lam, tk, scratch)
         if status != OK:
             return status
         for i in range(n):
@@ -335,12 +340,6 @@ def tiered_command(
     # dynamically consistent null-space posture: Nᵀ u, Nᵀ = I − Jᵀ Λ J M⁻¹
     for i in range(n):
         u[i] = kn[i] * (qhome[i] - q[i]) - dn[i] * vm[i]
-    for i in range(m):
-        for c in range(n):
-            acc = 0.0
-            for r in range(n):
-                acc += J[i, r] * Minv[r, c]
-            JMi[i, c] = acc
     for i in range(m):
         acc = 0.0
         for r in range(n):
