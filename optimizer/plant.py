@@ -21,9 +21,11 @@ __all__ = [
     "STOP_PINNED",
     "STOP_SINGULAR",
     "actuate",
+    "actuate_drive",
     "drive_packed",
     "integrate",
     "record",
+    "settle",
 ]
 
 writable_cache(Path(__file__).resolve().parent / "__pycache__")
@@ -176,3 +178,72 @@ def drive_packed(
         xn[i] = acc
     for i in range(nx):
         xa[i] = xn[i]
+
+
+@njit(cache=True)
+def actuate_drive(
+    tau_cmd: np.ndarray,
+    u_prev: np.ndarray,
+    rate_step: np.ndarray,
+    hist: np.ndarray,
+    delay: np.ndarray,
+    effort: np.ndarray,
+    pinned: np.ndarray,
+    u_d: np.ndarray,
+    xa: np.ndarray,
+    ABd: np.ndarray,
+    CDm: np.ndarray,
+    fr: np.ndarray,
+    v: np.ndarray,
+    tau_net: np.ndarray,
+    tau_del: np.ndarray,
+) -> int:
+    """``actuate`` then the first substep's ``drive_packed``, in one call (the hot loop
+    pays one dispatch for both); returns the joint pinned longest."""
+    worst = actuate(tau_cmd, u_prev, rate_step, hist, delay, effort, pinned, u_d)
+    drive_packed(xa, u_d, ABd, CDm, fr, v, tau_net, tau_del)
+    return worst
+
+
+@njit(cache=True)
+def settle(
+    k: int,
+    q: np.ndarray,
+    v: np.ndarray,
+    a: np.ndarray,
+    h: float,
+    e6: np.ndarray,
+    u: np.ndarray,
+    tau_del: np.ndarray,
+    tier_tau: np.ndarray,
+    Q: np.ndarray,
+    V: np.ndarray,
+    E: np.ndarray,
+    TC: np.ndarray,
+    TD: np.ndarray,
+    TT: np.ndarray,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    max_err2: float,
+    pinned: np.ndarray,
+    pinned_ticks: int,
+    status: int,
+    noise: np.ndarray,
+    vm: np.ndarray,
+) -> int:
+    """The end of tick ``k`` in one call: semi-implicit Euler with ``a`` (skipped when
+    ``h`` is 0: the substeps already integrated), ``record``, and the start of tick k + 1
+    — its logged state Q[k+1], V[k+1] and its measured velocity ``vm`` = v + noise[k+1].
+    Returns ``record``'s code."""
+    if h != 0.0:
+        integrate(q, v, a, h)
+    code = record(k, q, v, e6, u, tau_del, tier_tau, Q, E, TC, TD, TT, lower, upper,
+                  max_err2, pinned, pinned_ticks, status)
+    k1 = k + 1
+    if k1 < Q.shape[0]:
+        n = q.shape[0]
+        for j in range(n):
+            Q[k1, j] = q[j]
+            V[k1, j] = v[j]
+            vm[j] = v[j] + noise[k1, j]
+    return code

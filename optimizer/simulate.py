@@ -291,32 +291,28 @@ class ClosedLoop:
         vm = np.empty(n)
         max_err2 = s.max_error_m**2
         code = 0
-        for k in range(N):
+        ctrl, ud, net, dl = self.controller, self._ud, self._net, self._del
+        one = s.substeps == 1
+        a = np.zeros(n)  # the plant's acceleration (with substeps, advance integrates)
+        Q[0] = st.q
+        V[0] = st.v
+        np.add(st.v, noise[0], out=vm)
+        for k in range(N):  # step() and advance() written out: the hot loop
             if k in snap_at:
                 snaps.append((k, st.copy()))
-            Q[k] = st.q
-            V[k] = st.v
-            np.add(st.v, noise[k], out=vm)
-            status, worst = self.step(k, st, vm)
-            code = plant.record(
-                k,
-                st.q,
-                st.v,
-                self.controller.e6,
-                st.u_prev,
-                self._del,
-                self.controller.tier_tau,
-                Q,
-                E,
-                TC,
-                TD,
-                TT,
-                self.lower,
-                self.upper,
-                max_err2,
-                st.pinned,
-                self.pinned_ticks,
-                status,
+            status = ctrl.command(k, st.q, vm)
+            if one:
+                worst = plant.actuate_drive(
+                    ctrl.tau, st.u_prev, self.rate_step, st.hist, self.delay, self.effort,
+                    st.pinned, ud, st.xa, self._ABd, self._CDm, self._fr, st.v, net, dl,
+                )
+                a = pin.aba(self.plant, self.pdata, st.q, st.v, net)
+            else:
+                worst = self.advance(st, ctrl.tau)
+            code = plant.settle(
+                k, st.q, st.v, a, self.h if one else 0.0, ctrl.e6, st.u_prev, dl,
+                ctrl.tier_tau, Q, V, E, TC, TD, TT, self.lower, self.upper, max_err2,
+                st.pinned, self.pinned_ticks, status, noise, vm,
             )
             if code:
                 reason = self._explain(code, worst, ref.t[k], st)
