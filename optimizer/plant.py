@@ -98,7 +98,6 @@ def record(
     u: np.ndarray,
     tau_del: np.ndarray,
     tier_tau: np.ndarray,
-    Q: np.ndarray,
     E: np.ndarray,
     TC: np.ndarray,
     TD: np.ndarray,
@@ -110,7 +109,8 @@ def record(
     pinned_ticks: int,
     status: int,
 ) -> int:
-    """Log tick ``k`` and check for divergence.
+    """Log tick ``k`` (error, commanded, delivered and per-tier torque) and check for
+    divergence.
 
     Returns 0, or a STOP_* code: singular solve, non-finite state, tip error over the bound,
     a command pinned at its limit too long, STOP_JOINT_LIMIT + j for joint j outside its
@@ -237,7 +237,7 @@ def settle(
     Returns ``record``'s code."""
     if h != 0.0:
         integrate(q, v, a, h)
-    code = record(k, q, v, e6, u, tau_del, tier_tau, Q, E, TC, TD, TT, lower, upper,
+    code = record(k, q, v, e6, u, tau_del, tier_tau, E, TC, TD, TT, lower, upper,
                   max_err2, pinned, pinned_ticks, status)
     k1 = k + 1
     if k1 < Q.shape[0]:
