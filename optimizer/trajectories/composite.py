@@ -9,8 +9,6 @@ from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
-from scipy.interpolate import CubicSpline
-from scipy.spatial.transform import Rotation, RotationSpline
 
 from .simple import Offsets
 
@@ -122,6 +120,9 @@ class CsvPoses:
     def offsets(self, t: np.ndarray, R0: np.ndarray) -> Offsets:
         tc = np.clip(t, 0.0, self.times[-1])
         after = (t > self.times[-1])[:, None]
+        from scipy.interpolate import CubicSpline  # here: scipy.interpolate is slow to
+        from scipy.spatial.transform import Rotation, RotationSpline  # import
+
         ps = CubicSpline(self.times, self.dp, bc_type="clamped")
         rs = RotationSpline(self.times, Rotation.from_rotvec(self.rotvec))
         Rrel = rs(tc).as_matrix()
