@@ -292,7 +292,14 @@ class ClosedLoop:
         max_err2 = s.max_error_m**2
         code = 0
         ctrl, ud, net, dl = self.controller, self._ud, self._net, self._del
+        rate_step, delay, effort, ABd, CDm, fr = (
+            self.rate_step, self.delay, self.effort, self._ABd, self._CDm, self._fr
+        )
+        model, data, h, lower, upper = self.plant, self.pdata, self.h, self.lower, self.upper
+        actuate_drive, settle = plant.actuate_drive, plant.settle
+        aba, command = pin.aba, ctrl.command
         one = s.substeps == 1
+        pinned_ticks = self.pinned_ticks
         a = np.zeros(n)  # the plant's acceleration (with substeps, advance integrates)
         Q[0] = st.q
         V[0] = st.v
@@ -300,19 +307,19 @@ class ClosedLoop:
         for k in range(N):  # step() and advance() written out: the hot loop
             if k in snap_at:
                 snaps.append((k, st.copy()))
-            status = ctrl.command(k, st.q, vm)
+            status = command(k, st.q, vm)
             if one:
-                worst = plant.actuate_drive(
-                    ctrl.tau, st.u_prev, self.rate_step, st.hist, self.delay, self.effort,
-                    st.pinned, ud, st.xa, self._ABd, self._CDm, self._fr, st.v, net, dl,
+                worst = actuate_drive(
+                    ctrl.tau, st.u_prev, rate_step, st.hist, delay, effort, st.pinned, ud,
+                    st.xa, ABd, CDm, fr, st.v, net, dl,
                 )
-                a = pin.aba(self.plant, self.pdata, st.q, st.v, net)
+                a = aba(model, data, st.q, st.v, net)
             else:
                 worst = self.advance(st, ctrl.tau)
-            code = plant.settle(
-                k, st.q, st.v, a, self.h if one else 0.0, ctrl.e6, st.u_prev, dl,
-                ctrl.tier_tau, Q, V, E, TC, TD, TT, self.lower, self.upper, max_err2,
-                st.pinned, self.pinned_ticks, status, noise, vm,
+            code = settle(
+                k, st.q, st.v, a, h if one else 0.0, ctrl.e6, st.u_prev, dl, ctrl.tier_tau,
+                Q, V, E, TC, TD, TT, lower, upper, max_err2, st.pinned, pinned_ticks, status,
+                noise, vm,
             )
             if code:
                 reason = self._explain(code, worst, ref.t[k], st)

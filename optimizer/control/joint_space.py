@@ -164,6 +164,7 @@ class JointSpaceController:
         self.label = label
         self.effort = np.array(arm.effort)
         self._effort_base = self.effort.copy()
+        self._low = -self.effort
         self.data = arm.model.createData()
         self.sol: ClikSolution | None = None
         self.ref: Reference | None = None
@@ -180,6 +181,7 @@ class JointSpaceController:
         self.kp = self._kp_base * stiffness
         self.kd = self._kd_base * damping
         self.effort = self._effort_base.copy() if clip else np.full_like(self.effort, np.inf)
+        self._low = -self.effort
 
     def bind(self, ref: Reference) -> None:
         self.sol = clik_cached(
@@ -208,6 +210,6 @@ class JointSpaceController:
         M = pin.crba(model, data, q)
         h = pin.nonLinearEffects(model, data, q, vm)
         t = M @ (sol.a[k] + self.kp * (sol.q[k] - q) + self.kd * (sol.v[k] - vm)) + h
-        np.clip(t, -self.effort, self.effort, out=tau)
+        np.minimum(np.maximum(t, self._low, out=tau), self.effort, out=tau)  # np.clip, faster
         self.tier_tau[0, :] = t - h
         return 0
