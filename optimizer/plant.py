@@ -210,8 +210,6 @@ def settle(
     k: int,
     q: np.ndarray,
     v: np.ndarray,
-    a: np.ndarray,
-    h: float,
     e6: np.ndarray,
     u: np.ndarray,
     tau_del: np.ndarray,
@@ -231,12 +229,9 @@ def settle(
     noise: np.ndarray,
     vm: np.ndarray,
 ) -> int:
-    """The end of tick ``k`` in one call: semi-implicit Euler with ``a`` (skipped when
-    ``h`` is 0: the substeps already integrated), ``record``, and the start of tick k + 1
-    — its logged state Q[k+1], V[k+1] and its measured velocity ``vm`` = v + noise[k+1].
+    """The end of tick ``k`` in one call: ``record``, and the start of tick k + 1 — its
+    logged state Q[k+1], V[k+1] and its measured velocity ``vm`` = v + noise[k+1].
     Returns ``record``'s code."""
-    if h != 0.0:
-        integrate(q, v, a, h)
     code = record(k, q, v, e6, u, tau_del, tier_tau, E, TC, TD, TT, lower, upper,
                   max_err2, pinned, pinned_ticks, status)
     k1 = k + 1

@@ -218,23 +218,21 @@ class ClosedLoop:
         """Advance ``st`` by one tick under the command ``tau`` [N·m]: saturation, rate
         limit, delay, actuator lag, friction and the plant. Returns the joint pinned longest.
         """
-        worst = plant.actuate(
-            tau,
-            st.u_prev,
-            self.rate_step,
-            st.hist,
-            self.delay,
-            self.effort,
-            st.pinned,
-            self._ud,
-        )
         nsub = self.settings.substeps
         if nsub > 1:
             self._del_sum[:] = 0.0
-        for _ in range(nsub):
-            plant.drive_packed(
-                st.xa, self._ud, self._ABd, self._CDm, self._fr, st.v, self._net, self._del
-            )
+        for i in range(nsub):
+            if i == 0:  # the command's limits and delay, then the first drive substep
+                worst = plant.actuate_drive(
+                    tau, st.u_prev, self.rate_step, st.hist, self.delay, self.effort,
+                    st.pinned, self._ud, st.xa, self._ABd, self._CDm, self._fr, st.v,
+                    self._net, self._del,
+                )
+            else:
+                plant.drive_packed(
+                    st.xa, self._ud, self._ABd, self._CDm, self._fr, st.v, self._net,
+                    self._del,
+                )
             a = pin.aba(self.plant, self.pdata, st.q, st.v, self._net)
             plant.integrate(st.q, st.v, a, self.h)
             if nsub > 1:
@@ -291,35 +289,19 @@ class ClosedLoop:
         vm = np.empty(n)
         max_err2 = s.max_error_m**2
         code = 0
-        ctrl, ud, net, dl = self.controller, self._ud, self._net, self._del
-        rate_step, delay, effort, ABd, CDm, fr = (
-            self.rate_step, self.delay, self.effort, self._ABd, self._CDm, self._fr
-        )
-        model, data, h, lower, upper = self.plant, self.pdata, self.h, self.lower, self.upper
-        actuate_drive, settle = plant.actuate_drive, plant.settle
-        aba, command = pin.aba, ctrl.command
-        one = s.substeps == 1
-        pinned_ticks = self.pinned_ticks
-        a = np.zeros(n)  # the plant's acceleration (with substeps, advance integrates)
+        ctrl, dl, advance, settle = self.controller, self._del, self.advance, plant.settle
+        lower, upper, pinned_ticks = self.lower, self.upper, self.pinned_ticks
         Q[0] = st.q
         V[0] = st.v
         np.add(st.v, noise[0], out=vm)
-        for k in range(N):  # step() and advance() written out: the hot loop
+        for k in range(N):
             if k in snap_at:
                 snaps.append((k, st.copy()))
-            status = command(k, st.q, vm)
-            if one:
-                worst = actuate_drive(
-                    ctrl.tau, st.u_prev, rate_step, st.hist, delay, effort, st.pinned, ud,
-                    st.xa, ABd, CDm, fr, st.v, net, dl,
-                )
-                a = aba(model, data, st.q, st.v, net)
-            else:
-                worst = self.advance(st, ctrl.tau)
+            status = ctrl.command(k, st.q, vm)
+            worst = advance(st, ctrl.tau)
             code = settle(
-                k, st.q, st.v, a, h if one else 0.0, ctrl.e6, st.u_prev, dl, ctrl.tier_tau,
-                Q, V, E, TC, TD, TT, lower, upper, max_err2, st.pinned, pinned_ticks, status,
-                noise, vm,
+                k, st.q, st.v, ctrl.e6, st.u_prev, dl, ctrl.tier_tau, Q, V, E, TC, TD, TT,
+                lower, upper, max_err2, st.pinned, pinned_ticks, status, noise, vm,
             )
             if code:
                 reason = self._explain(code, worst, ref.t[k], st)
