@@ -34,6 +34,7 @@ __all__ = [
     "percent",
     "plan_legend",
     "plant_line",
+    "ranking_cells",
     "ranking_table",
     "reasons",
     "robust_table",
@@ -361,25 +362,34 @@ def ranking_table(ranked: Sequence[Entry]) -> Table:
         t.add_column(c, justify="left" if c == "entry" else "right")
     for e in ranked:
         style = "bold" if e.kind != "plan" or e.source == "hand" else ""
-        plants = e.plants or 0
         t.add_row(
             str(e.rank),
             escape(f"{e.label} [{e.source or ''}]"),
             str(e.tiers),
-            f"{e.plants_feasible or 0}/{plants}" if plants else "–",
-            fmt(e.p90_error),
-            fmt(e.worst_error),
-            fmt(e.error_index),
-            fmt(e.pos_rms_mm),
-            fmt(e.rot_rms_deg),
-            *margin_cells(e),
-            fmt(e.peak_torque_ratio),
-            percent(e.vs_tuned_osc),
-            percent(e.vs_tuned_joint),
+            *ranking_cells(e),
             *(("yes" if e.pareto else "",) if front else ()),
             style=style,
         )
     return t
+
+
+def ranking_cells(e: Entry) -> list[str]:
+    """An entry's figures as the ranking shows them (screen and report.md alike): plants
+    ok, p90, worst and nominal error, RMS errors, the margins, peak torque, and the change
+    against each tuned baseline."""
+    plants = e.plants or 0
+    return [
+        f"{e.plants_feasible or 0}/{plants}" if plants else "–",
+        fmt(e.p90_error),
+        fmt(e.worst_error),
+        fmt(e.error_index),
+        fmt(e.pos_rms_mm),
+        fmt(e.rot_rms_deg),
+        *margin_cells(e),
+        fmt(e.peak_torque_ratio),
+        percent(e.vs_tuned_osc),
+        percent(e.vs_tuned_joint),
+    ]
 
 
 def percent(x: float | None) -> str:

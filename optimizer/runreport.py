@@ -333,7 +333,7 @@ def problem_paragraph(problem: Problem, record: dict[str, Any]) -> str:
 
 def ranking_markdown(ranking: Sequence[Entry]) -> str:
     """The ranked table as Markdown (the numbers of ranking.json, 3 significant digits)."""
-    from .report import margin_cells, percent
+    from .report import ranking_cells
 
     front = any(e.pareto is not None for e in ranking)
     cols = [
@@ -356,22 +356,12 @@ def ranking_markdown(ranking: Sequence[Entry]) -> str:
     ] + (["Pareto"] if front else [])
     lines = ["| " + " | ".join(cols) + " |", "|" + "---|" * len(cols)]
     for e in ranking:
-        plants = e.plants or 0
         row = [
             str(e.rank),
             str(e.label).replace("|", "/"),
             str(e.source),
             str(e.tiers),
-            f"{e.plants_feasible}/{plants}" if plants else "–",
-            fmt(e.p90_error),
-            fmt(e.worst_error),
-            fmt(e.error_index),
-            fmt(e.pos_rms_mm),
-            fmt(e.rot_rms_deg),
-            *margin_cells(e),
-            fmt(e.peak_torque_ratio),
-            percent(e.vs_tuned_osc),
-            percent(e.vs_tuned_joint),
+            *ranking_cells(e),
         ]
         if front:
             row.append("yes" if e.pareto else "")
