@@ -17,8 +17,9 @@ from __future__ import annotations
 
 import sys
 import tempfile
-import time
 from pathlib import Path
+
+from timing import best_cpu  # bench/timing.py, beside this script
 
 from optimizer.blas import one_thread
 
@@ -102,15 +103,6 @@ ramp_s = 0.3
     return folder / "problem.toml"
 
 
-def _best(f, repeat: int = 3) -> float:  # type: ignore[no-untyped-def]
-    out = float("inf")
-    for _ in range(repeat):
-        t0 = time.process_time()
-        f()
-        out = min(out, time.process_time() - t0)
-    return out
-
-
 def main() -> None:
     counts = [int(x) for x in sys.argv[1:]] or [7, 14, 28]
     shares: dict[int, float] = {}
@@ -135,9 +127,9 @@ def main() -> None:
                 return evaluate_robust(prob, plants, lambda p: plan_controller(p, plan), "p")
 
             s = run(True)  # compile, and check the plan is stable
-            a = _best(lambda: run(False))
-            b = _best(lambda: run(True))
-            c = _best(trial)
+            a = best_cpu(lambda: run(False))
+            b = best_cpu(lambda: run(True))
+            c = best_cpu(trial)
             shares[n] = (b - a) / b
             trials[n] = (b - a) / c
             last = b

@@ -12,8 +12,9 @@ margin_share=<(b-a)/c>``.
 from __future__ import annotations
 
 import sys
-import time
 from pathlib import Path
+
+from timing import best_cpu  # bench/timing.py, beside this script
 
 from optimizer.evaluate import evaluate, plan_controller
 from optimizer.plan import load_plan
@@ -21,15 +22,6 @@ from optimizer.problem import load_problem
 from optimizer.robust import evaluate_robust, plant_set
 
 ROOT = Path(__file__).resolve().parent.parent
-
-
-def _best(f, repeat: int = 3) -> float:  # type: ignore[no-untyped-def]
-    out = float("inf")
-    for _ in range(repeat):
-        t0 = time.process_time()
-        f()
-        out = min(out, time.process_time() - t0)
-    return out
 
 
 def main() -> None:
@@ -42,9 +34,9 @@ def main() -> None:
         return plan_controller(p, plan)
 
     evaluate(prob, make(prob), "warm-up", compute_margin=True)  # compile
-    a = _best(lambda: evaluate(prob, make(prob), "n", compute_margin=False))
-    b = _best(lambda: evaluate(prob, make(prob), "m", compute_margin=True))
-    c = _best(lambda: evaluate_robust(prob, plants, make, "r"))
+    a = best_cpu(lambda: evaluate(prob, make(prob), "n", compute_margin=False))
+    b = best_cpu(lambda: evaluate(prob, make(prob), "m", compute_margin=True))
+    c = best_cpu(lambda: evaluate_robust(prob, plants, make, "r"))
     print(f"nominal plant, no margins:          {a:6.2f} s CPU")
     print(f"nominal plant with the 3 margins:   {b:6.2f} s CPU ({b / a:.2f}x)")
     print(f"robust ({k} perturbed plants + nominal): {c:6.2f} s CPU ({c / b:.2f}x the nominal "
