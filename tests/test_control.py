@@ -213,3 +213,44 @@ def test_tiered_command_single_tier_equals_osc_plus_null_and_h(demo) -> None:
     expected = osc_torque(M, J, a) + null_projector_t(M, J) @ u + h
     np.testing.assert_allclose(e6, e, atol=1e-12)
     np.testing.assert_allclose(tau, expected, rtol=1e-6, atol=1e-6)
+
+
+def test_joint_space_kernel_is_the_computed_torque_law_bit_for_bit(demo) -> None:
+    """τ = M (a_d + Kp (q_d − q) + Kd (v_d − v)) + h, clipped to the efforts (computed-torque
+    control: Siciliano et al., Robotics: Modelling, Planning and Control (2009) §8.5.2, from
+    memory). The compiled kernel must equal the numpy form bit for bit (runs made before
+    it reproduce exactly), and both the law written out here."""
+    from optimizer.evaluate import joint_controller
+
+    prob = demo
+    n = prob.arm.n
+    rng = np.random.default_rng(4)
+    ctrl = joint_controller(prob, rng.uniform(50.0, 900.0, n), 0.8)
+    model, data, fid = prob.arm.model, prob.arm.model.createData(), prob.arm.tip_id
+    for ref in prob.references[:2]:
+        ctrl.bind(ref)
+        sol = ctrl.sol
+        for i in range(40):
+            k = int(rng.integers(len(ref.t)))
+            q = np.array(prob.arm.home) + 0.2 * rng.standard_normal(n)
+            v = rng.standard_normal(n)
+            s, d = (1.0, 1.0) if i < 10 else rng.uniform(0.0, 3.0, 2)
+            ctrl.set_gain_scale(s, d, clip=i % 4 != 3)
+            assert ctrl.command(k, q, v) == 0
+            expected = ctrl.command_numpy(k, q, v)
+            assert np.array_equal(ctrl.tau, expected)
+            assert np.array_equal(ctrl.e6, ctrl.e6_numpy)
+            assert np.array_equal(ctrl.tier_tau[0], ctrl.pd_numpy)
+            pin.framesForwardKinematics(model, data, q)
+            f = data.oMf[fid]
+            e = np.concatenate([ref.p[k] - f.translation, pin.log3(ref.R[k] @ f.rotation.T)])
+            M = pin.crba(model, data, q)
+            M = np.triu(M) + np.triu(M, 1).T
+            h = pin.rnea(model, data, q, v, np.zeros(n))
+            kp = ctrl.kp
+            kd = ctrl.kd
+            t = M @ (sol.a[k] + kp * (sol.q[k] - q) + kd * (sol.v[k] - v)) + h
+            lim = np.array(prob.arm.effort) if i % 4 != 3 else np.full(n, np.inf)
+            np.testing.assert_allclose(ctrl.tau, np.clip(t, -lim, lim), rtol=1e-12, atol=1e-9)
+            np.testing.assert_allclose(ctrl.e6, e, atol=1e-12)
+    ctrl.set_gain_scale()

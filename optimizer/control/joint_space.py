@@ -164,14 +164,19 @@ class JointSpaceController:
         self.label = label
         self.effort = np.array(arm.effort)
         self._effort_base = self.effort.copy()
-        self._low = -self.effort
         self.data = arm.model.createData()
         self.sol: ClikSolution | None = None
         self.ref: Reference | None = None
-        self._rv = np.empty(3)
-        self.tau = np.zeros(arm.n)
-        self.e6 = np.zeros(6)
-        self.tier_tau = np.zeros((1, arm.n))
+        n = arm.n
+        #: the kernel's inputs: gains and limits; task and joint references, per tick
+        self._gp = np.concatenate([self.kp, self.kd, self.effort])
+        self._refs = np.zeros((1, 12))
+        self._jref = np.zeros((1, 3 * n))
+        #: the kernel writes here; tau, e6 and tier_tau are views
+        self._out = np.zeros(2 * n + 6)
+        self.tau = self._out[:n]
+        self.e6 = self._out[n : n + 6]
+        self.tier_tau = self._out[n + 6 :].reshape(1, n)
 
     def set_gain_scale(
         self, stiffness: float = 1.0, damping: float = 1.0, clip: bool = True
@@ -181,7 +186,7 @@ class JointSpaceController:
         self.kp = self._kp_base * stiffness
         self.kd = self._kd_base * damping
         self.effort = self._effort_base.copy() if clip else np.full_like(self.effort, np.inf)
-        self._low = -self.effort
+        self._gp[:] = np.concatenate([self.kp, self.kd, self.effort])
 
     def bind(self, ref: Reference) -> None:
         self.sol = clik_cached(
@@ -193,23 +198,36 @@ class JointSpaceController:
             self.posture_gain,
         )
         self.ref = ref
+        N = len(ref.t)
+        self._refs = np.ascontiguousarray(np.hstack([ref.p, ref.R.reshape(N, 9)]), dtype=float)
+        sol = self.sol
+        self._jref = np.ascontiguousarray(np.hstack([sol.q, sol.v, sol.a]), dtype=float)
 
     def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+        model, data = self.arm.model, self.data
+        if self.sol is None:
+            raise RuntimeError("bind() a reference before command()")
+        pin.framesForwardKinematics(model, data, q)
+        H = data.oMf[self.arm.tip_id].homogeneous
+        M = pin.crba(model, data, q)
+        h = pin.nonLinearEffects(model, data, q, vm)
+        kernels.joint_command(H, M, h, q, vm, self._refs, self._jref, k, self._gp, self._out)
+        return 0
+
+    def command_numpy(self, k: int, q: np.ndarray, vm: np.ndarray) -> np.ndarray:
+        """The same law written with numpy (the readable form ``command`` compiles);
+        returns the clipped command. For tests."""
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
-        sol = self.sol
-        if sol is None:
+        sol, ref = self.sol, self.ref
+        if sol is None or ref is None:
             raise RuntimeError("bind() a reference before command()")
         pin.framesForwardKinematics(model, data, q)
         f = data.oMf[fid]
-        e6, tau, ref = self.e6, self.tau, self.ref
-        if ref is None:
-            raise RuntimeError("bind() a reference before command()")
-        e6[:3] = ref.p[k] - f.translation
-        kernels.log3(ref.R[k] @ f.rotation.T, self._rv)
-        e6[3:] = self._rv
+        rv = np.empty(3)
+        kernels.log3(ref.R[k] @ f.rotation.T, rv)
+        self.e6_numpy = np.concatenate([ref.p[k] - f.translation, rv])
         M = pin.crba(model, data, q)
         h = pin.nonLinearEffects(model, data, q, vm)
         t = M @ (sol.a[k] + self.kp * (sol.q[k] - q) + self.kd * (sol.v[k] - vm)) + h
-        np.minimum(np.maximum(t, self._low, out=tau), self.effort, out=tau)  # np.clip, faster
-        self.tier_tau[0, :] = t - h
-        return 0
+        self.pd_numpy = t - h
+        return np.minimum(np.maximum(t, -self.effort), self.effort)

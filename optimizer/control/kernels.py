@@ -20,6 +20,7 @@ __all__ = [
     "bounded_qp",
     "cho_solve_vec",
     "cholesky",
+    "joint_command",
     "log3",
     "tier_solve",
     "tiered_command",
@@ -368,6 +369,59 @@ def tiered_command(
             t_ = -lim
         tau[i] = t_
     return OK
+
+
+@njit(cache=True)
+def joint_command(
+    H: np.ndarray,
+    M: np.ndarray,
+    h: np.ndarray,
+    q: np.ndarray,
+    vm: np.ndarray,
+    refs: np.ndarray,
+    jref: np.ndarray,
+    k: int,
+    gp: np.ndarray,
+    out: np.ndarray,
+) -> None:
+    """One tick of the joint-space baseline (see joint_space.py).
+
+    ``H`` is the tip placement (4×4), ``refs[k]`` the packed task reference row
+    [p_d (3), R_d (9, row-major), ...], ``jref[k]`` the joint reference [q_d, v_d, a_d]
+    (3n), ``gp`` = [kp (n), kd (n), effort (n)]. Writes into ``out``: the clipped command
+    (n), the tip pose error e (6), the PD part M w (n). The matrix products are numba's
+    (BLAS) products, the same calls numpy makes: the results equal the numpy form's bit
+    for bit (tests check it).
+    """
+    n = q.shape[0]
+    tau = out[:n]
+    e6 = out[n : n + 6]
+    pd = out[n + 6 : 2 * n + 6]
+    ref = refs[k]
+    Rd = ref[3:12].reshape((3, 3))
+    Rt = np.empty((3, 3))
+    for i in range(3):
+        e6[i] = ref[i] - H[i, 3]
+        for c in range(3):
+            Rt[i, c] = H[c, i]
+    rv = np.empty(3)
+    log3(Rd @ Rt, rv)
+    for i in range(3):
+        e6[3 + i] = rv[i]
+    jr = jref[k]
+    w = np.empty(n)
+    for j in range(n):
+        w[j] = jr[2 * n + j] + gp[j] * (jr[j] - q[j]) + gp[n + j] * (jr[n + j] - vm[j])
+    Mw = M @ w
+    for j in range(n):
+        t = Mw[j] + h[j]
+        pd[j] = t - h[j]
+        lim = gp[2 * n + j]
+        if t < -lim:  # as np.minimum(np.maximum(t, -lim), lim): nan stays nan
+            t = -lim
+        elif t > lim:
+            t = lim
+        tau[j] = t
 
 
 @njit(cache=True)
