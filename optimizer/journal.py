@@ -16,6 +16,8 @@ from pathlib import Path
 from optuna.storages import JournalStorage
 from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
 
+from . import interrupt
+
 __all__ = [
     "FlockLock",
     "journal_storage",
@@ -40,21 +42,29 @@ class FlockLock(JournalFileOpenLock):
         self._fd: int | None = None
 
     def acquire(self) -> bool:
-        fd = os.open(self._path, os.O_RDWR | os.O_CREAT, 0o644)
+        interrupt.critical_enter()  # a Ctrl-C waits until the lock is released
         try:
-            fcntl.flock(fd, fcntl.LOCK_EX)
+            fd = os.open(self._path, os.O_RDWR | os.O_CREAT, 0o644)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX)
+            except BaseException:
+                os.close(fd)
+                raise
+            self._fd = fd
+            _drop_torn_tail(self._journal)
         except BaseException:
-            os.close(fd)
+            interrupt.critical_exit()
             raise
-        self._fd = fd
-        _drop_torn_tail(self._journal)
         return True
 
     def release(self) -> None:
         if self._fd is not None:
             fd, self._fd = self._fd, None
-            fcntl.flock(fd, fcntl.LOCK_UN)
-            os.close(fd)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_UN)
+                os.close(fd)
+            finally:
+                interrupt.critical_exit()
 
 
 def _drop_torn_tail(journal: str) -> None:

@@ -34,7 +34,7 @@ import numpy as np
 import optuna
 from optuna.trial import TrialState
 
-from . import ladder
+from . import interrupt, ladder
 from .control import Controller
 from .evaluate import (
     joint_controller,
@@ -301,6 +301,7 @@ def _run_candidate(
         return penalty(v), None
 
     def on_step(i: int, running: float) -> None:
+        interrupt.checkpoint()  # a Ctrl-C held while the journal was locked
         if not prune or not math.isfinite(running):
             return
         trial.report(running, i)
@@ -413,14 +414,15 @@ def objective(
     chosen = {"plan": plan_objective, "osc": osc_objective, "joint_space": joint_objective}[kind]
 
     def guarded(trial: optuna.trial.Trial) -> float | tuple[float, float]:
-        try:
-            return chosen(trial)
-        except optuna.TrialPruned:
-            raise
-        except Exception as err:  # a failed candidate is a result: say why, go on
-            trial.set_user_attr("reason", f"error: {type(err).__name__}: {err}"[:300])
-            raise
-        # KeyboardInterrupt and SystemExit leave no reason: the trial is abandoned
+        with interrupt.objective():  # a Ctrl-C ends the trial here, not in optuna's records
+            try:
+                return chosen(trial)
+            except optuna.TrialPruned:
+                raise
+            except Exception as err:  # a failed candidate is a result: say why, go on
+                trial.set_user_attr("reason", f"error: {type(err).__name__}: {err}"[:300])
+                raise
+            # KeyboardInterrupt and SystemExit leave no reason: the trial is abandoned
 
     return guarded
 
@@ -692,10 +694,6 @@ def study_options(
     return {"sampler": name, "x0": x0, "warmup": max(0, len(problem.references) - 1)}
 
 
-#: In a worker process: True while it runs trials (``run_worker``), False while idle.
-_WORKING = False
-#: In a worker process: a Ctrl-C came while it was not running trials; it runs none.
-_STOP = False
 #: Seconds the parent gives its workers to end after Ctrl-C before it kills them (a
 #: killed worker loses only its trial in flight, which a resume runs again).
 STOP_GRACE_S = 20.0
@@ -705,23 +703,15 @@ def worker_start() -> None:
     """Pool initializer of a worker process: how it takes Ctrl-C.
 
     A terminal's Ctrl-C reaches every process of the group, and the parent then sends
-    SIGINT again to stop its workers. The first SIGINT stops the trial in flight
-    (KeyboardInterrupt: optuna ends that trial as failed, which a resume retries); any
-    later one is ignored, so it cannot land in the middle of that clean-up and print a
-    traceback. A worker that is not running trials yet (starting, loading the problem,
-    waiting for a job) notes the request and then runs none.
+    SIGINT again to stop its workers. A Ctrl-C stops the trial in flight (KeyboardInterrupt
+    in its objective: optuna ends that trial as failed, which a resume retries), once;
+    one that comes outside an objective (starting, loading the problem, waiting for a job,
+    optuna's bookkeeping) is held, and the worker then starts no further trial
+    (``interrupt``).
     """
-    signal.signal(signal.SIGINT, _worker_sigint)
+    interrupt.install()
     if hasattr(signal, "pthread_sigmask"):  # the parent spawned it with SIGINT blocked
         signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
-
-
-def _worker_sigint(signum: int, frame: Any) -> None:
-    global _STOP
-    _STOP = True
-    if _WORKING:
-        signal.signal(signal.SIGINT, signal.SIG_IGN)
-        raise KeyboardInterrupt
 
 
 @contextlib.contextmanager
@@ -790,17 +780,15 @@ def _stop_pool(pool: ProcessPoolExecutor) -> None:
 def run_worker(job: WorkerJob) -> int:
     """Run ``job.n_trials`` trials of one study in this process; returns trials run (fewer
     when Ctrl-C stopped it: the parent, interrupted too, ranks what finished)."""
-    global _WORKING
     quiet_optuna()
     problem = _worker_problem(job)
     opts = study_options(problem, job.kind)
     opts["x0"] = dict(job.x0) or None
     study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts)
     n0 = finished(study)
+    if interrupt.requested():  # Ctrl-C came while it started: run nothing
+        return 0
     try:
-        _WORKING = True
-        if _STOP:  # Ctrl-C came while it started: run nothing (checked after the flag is
-            return 0  # set, so a signal in between raises instead of being missed)
         study.optimize(
             objective(problem, job.kind, job.prune, job.objectives),
             n_trials=job.n_trials,
@@ -808,10 +796,7 @@ def run_worker(job: WorkerJob) -> int:
             callbacks=[Budget(job.total)] if job.total else [],
         )
     except KeyboardInterrupt:  # the trial in flight is already ended; say so quietly
-        signal.signal(signal.SIGINT, signal.SIG_IGN)
         return max(0, finished(study) - n0)
-    finally:
-        _WORKING = False
     return job.n_trials
 
 
@@ -882,12 +867,13 @@ def run_search(
         )
         if not add:
             cb.append(Budget(total_trials))
-        study.optimize(
-            objective(problem, kind, prune, objectives),
-            n_trials=remaining,
-            callbacks=cb,
-            catch=(Exception,),
-        )
+        with interrupt.taking():
+            study.optimize(
+                objective(problem, kind, prune, objectives),
+                n_trials=remaining,
+                callbacks=cb,
+                catch=(Exception,),
+            )
         return study
     shares = [remaining // workers + (1 if i < remaining % workers else 0) for i in range(workers)]
     jobs = [

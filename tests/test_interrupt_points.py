@@ -1,0 +1,67 @@
+"""Where a Ctrl-C may interrupt a process that runs trials (``optimizer.interrupt``)."""
+
+from __future__ import annotations
+
+import signal
+
+import pytest
+
+from optimizer import interrupt
+
+
+def _ctrl_c() -> None:
+    signal.raise_signal(signal.SIGINT)  # the handler runs before the next line
+
+
+def test_inside_an_objective_it_interrupts_at_once() -> None:
+    ran = []
+    with pytest.raises(KeyboardInterrupt), interrupt.taking(), interrupt.objective():
+        _ctrl_c()
+        ran.append("after")  # not reached
+    assert ran == []
+
+
+def test_outside_an_objective_it_is_held_to_the_end_of_the_trials() -> None:
+    ran = []
+    with pytest.raises(KeyboardInterrupt), interrupt.taking():
+        _ctrl_c()  # optuna's bookkeeping, say
+        ran.append("bookkeeping went on")
+        assert interrupt.requested()
+    assert ran == ["bookkeeping went on"]
+    assert not interrupt.requested()  # the block reset it
+
+
+def test_a_held_one_stops_the_next_objective_before_it_starts() -> None:
+    ran = []
+    with pytest.raises(KeyboardInterrupt), interrupt.taking():
+        _ctrl_c()
+        with interrupt.objective():
+            ran.append("objective")  # not reached
+    assert ran == []
+
+
+def test_in_a_critical_section_it_waits_for_a_checkpoint() -> None:
+    ran = []
+    with pytest.raises(KeyboardInterrupt), interrupt.taking(), interrupt.objective():
+        interrupt.critical_enter()  # the journal's lock, say
+        _ctrl_c()
+        ran.append("wrote the record")
+        interrupt.critical_exit()
+        ran.append("released the lock")
+        interrupt.checkpoint()
+        ran.append("past the checkpoint")  # not reached
+    assert ran == ["wrote the record", "released the lock"]
+
+
+def test_it_interrupts_once_per_objective_and_the_old_handler_comes_back() -> None:
+    before = signal.getsignal(signal.SIGINT)
+    ran = []
+    with pytest.raises(KeyboardInterrupt), interrupt.taking():
+        try:
+            with interrupt.objective():
+                _ctrl_c()
+        except KeyboardInterrupt:
+            _ctrl_c()  # a second Ctrl-C in optuna's clean-up: held, not raised there
+            ran.append("clean-up finished")
+    assert ran == ["clean-up finished"]  # and the block raised the held one at its end
+    assert signal.getsignal(signal.SIGINT) is before
