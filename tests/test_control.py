@@ -254,3 +254,45 @@ def test_joint_space_kernel_is_the_computed_torque_law_bit_for_bit(demo) -> None
             np.testing.assert_allclose(ctrl.tau, np.clip(t, -lim, lim), rtol=1e-12, atol=1e-9)
             np.testing.assert_allclose(ctrl.e6, e, atol=1e-12)
     ctrl.set_gain_scale()
+
+
+@pytest.mark.parametrize("which", ["three-tier", "bounded", "joint"])
+def test_commands_at_several_gain_factors_equal_one_command_each(demo, which) -> None:
+    """``commands`` (the kinematics once, the law per factor pair) gives, bit for bit, what
+    ``set_gain_scale(s, d, clip=False)`` then ``command`` gives, and restores the gains;
+    the linearisation relies on it (a margin must not depend on how it was computed)."""
+    import dataclasses
+    from pathlib import Path
+
+    from optimizer.evaluate import joint_controller, plan_controller
+    from optimizer.plan import load_plan
+
+    prob = demo
+    n = prob.arm.n
+    if which == "joint":
+        ctrl = joint_controller(prob, np.full(n, 300.0), 0.8)
+    else:
+        plan = load_plan(
+            Path(prob.path).parent / "plans" / "three-tier.toml", prob.arm.joint_names
+        )
+        if which == "bounded":
+            plan = dataclasses.replace(plan, law="bounded")
+        ctrl = plan_controller(prob, plan)
+    ref = prob.references[0]
+    ctrl.bind(ref)
+    rng = np.random.default_rng(3)
+    scales = ((1.0, 1.0), (1.0, 0.0), (0.0, 1.0), (2.5, math.sqrt(2.5)))
+    for _ in range(10):
+        k = int(rng.integers(len(ref.t)))
+        q = np.array(prob.arm.home) + 0.1 * rng.standard_normal(n)
+        v = rng.standard_normal(n)
+        rows = ctrl.commands(k, q, v, scales)
+        for (s, d), row in zip(scales, rows, strict=True):
+            ctrl.set_gain_scale(s, d, clip=False)
+            ctrl.command(k, q, v)
+            assert np.array_equal(row, ctrl.tau)
+        ctrl.set_gain_scale()
+        plain = ctrl.commands(k, q, v, ((1.0, 1.0),))[0]
+        ctrl.command(k, q, v)  # gains restored: clipped again
+        lim = np.array(prob.arm.effort)
+        assert np.array_equal(ctrl.tau, np.clip(plain, -lim, lim)) or which == "bounded"

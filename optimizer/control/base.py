@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -73,4 +74,13 @@ class Controller(Protocol):
         ``q``/``vm`` are the measured joint positions [rad] and velocities [rad/s].
         Returns 0, or a non-zero status for a singular solve.
         """
+        ...
+
+    def commands(
+        self, k: int, q: np.ndarray, vm: np.ndarray, scales: Sequence[tuple[float, float]]
+    ) -> np.ndarray:
+        """The command for tick ``k`` with the effort clip lifted, one row per (stiffness,
+        damping) pair of ``scales``, each equal bit for bit to ``set_gain_scale(s, d,
+        clip=False)`` then ``command``; the kinematics are computed once (linearisation).
+        The plan's gains are restored after."""
         ...

@@ -13,6 +13,7 @@ so that, away from singularities, ė + K_clik e = 0. Tracking:
 from __future__ import annotations
 
 from collections import OrderedDict
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -203,7 +204,8 @@ class JointSpaceController:
         sol = self.sol
         self._jref = np.ascontiguousarray(np.hstack([sol.q, sol.v, sol.a]), dtype=float)
 
-    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+    def _kinematics(self, q: np.ndarray, vm: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Tip placement (4×4), M and h at (q, v): the law's pinocchio calls."""
         model, data = self.arm.model, self.data
         if self.sol is None:
             raise RuntimeError("bind() a reference before command()")
@@ -211,8 +213,29 @@ class JointSpaceController:
         H = data.oMf[self.arm.tip_id].homogeneous
         M = pin.crba(model, data, q)
         h = pin.nonLinearEffects(model, data, q, vm)
+        return H, M, h
+
+    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+        H, M, h = self._kinematics(q, vm)
         kernels.joint_command(H, M, h, q, vm, self._refs, self._jref, k, self._gp, self._out)
         return 0
+
+    def commands(
+        self, k: int, q: np.ndarray, vm: np.ndarray, scales: Sequence[tuple[float, float]]
+    ) -> np.ndarray:
+        """As ``TieredController.commands``: the unclipped command per gain-factor pair."""
+        H, M, h = self._kinematics(q, vm)
+        out = np.empty((len(scales), self.arm.n))
+        try:
+            for i, (s, d) in enumerate(scales):
+                self.set_gain_scale(s, d, clip=False)
+                kernels.joint_command(
+                    H, M, h, q, vm, self._refs, self._jref, k, self._gp, self._out
+                )
+                out[i] = self.tau
+        finally:
+            self.set_gain_scale()
+        return out
 
     def command_numpy(self, k: int, q: np.ndarray, vm: np.ndarray) -> np.ndarray:
         """The same law written with numpy (the readable form ``command`` compiles);

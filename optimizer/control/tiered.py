@@ -26,6 +26,8 @@ the feed-forward.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 import pinocchio as pin
 
@@ -208,7 +210,11 @@ class TieredController:
             np.hstack([ref.p, ref.R.reshape(N, 9), ref.twist, ref.acc]), dtype=float
         )
 
-    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+    def _kinematics(
+        self, q: np.ndarray, vm: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Tip placement (4×4), tip Jacobian, J̇v, h and M⁻¹ at (q, v): the law's pinocchio
+        calls."""
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
         pin.forwardKinematics(model, data, q, vm, self._zero)
         pin.computeJointJacobians(model, data)
@@ -220,6 +226,10 @@ class TieredController:
         if self._one_joint:  # pinocchio hands a 6×1 Jacobian back as a vector
             J6 = J6.reshape(6, 1)
             Minv = np.atleast_2d(Minv)
+        return H, J6, dJv, h, Minv
+
+    def command(self, k: int, q: np.ndarray, vm: np.ndarray) -> int:
+        H, J6, dJv, h, Minv = self._kinematics(q, vm)
         status = int(
             kernels.tiered_command(
                 H, J6, dJv, h, Minv, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
@@ -230,6 +240,26 @@ class TieredController:
         if self._clip and self.law == "bounded":
             self._prev = self.tau.copy()
         return status
+
+    def commands(
+        self, k: int, q: np.ndarray, vm: np.ndarray, scales: Sequence[tuple[float, float]]
+    ) -> np.ndarray:
+        """The command at tick ``k`` with the effort clip lifted, once per (stiffness,
+        damping) factor pair of ``scales`` (rows), the kinematics computed once: each row
+        is what ``set_gain_scale(s, d, clip=False)`` then ``command`` gives, bit for bit.
+        The plan's own gains are restored after."""
+        kin = self._kinematics(q, vm)
+        out = np.empty((len(scales), self.arm.n))
+        try:
+            for i, (s, d) in enumerate(scales):
+                self.set_gain_scale(s, d, clip=False)
+                kernels.tiered_command(
+                    *kin, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
+                )
+                out[i] = self.tau
+        finally:
+            self.set_gain_scale()
+        return out
 
     def _bound(self, J6: np.ndarray, Minv: np.ndarray) -> None:
         """Replace the clipped sum by the bounded law's command where a bound binds."""
