@@ -38,7 +38,7 @@ from .control import Controller, ControlSettings
 from .evaluate import evaluate, joint_controller, make_loop, plan_controller
 from .plan import Plan, Tier
 from .problem import Problem
-from .stability import home_check
+from .stability import home_check, home_linear
 
 __all__ = [
     "DEVIATION_RANGE",
@@ -54,6 +54,7 @@ __all__ = [
     "bandwidth_cuts",
     "bandwidth_order",
     "gain_ladder",
+    "highest_scaled",
     "highest_stiffness",
     "informed_joint_gains",
     "informed_osc",
@@ -123,10 +124,25 @@ def highest_stiffness(
     bisected in log k against the next grid point; 0 when none holds."""
     ref = problem.references[0]
     limits = problem.scoring.margins
+    return _highest(lambda k: home_check(make_loop(problem, make(k)), ref, limits), lo, hi)
 
-    def ok(k: float) -> bool:
-        return home_check(make_loop(problem, make(k)), ref, limits)
 
+def highest_scaled(
+    problem: Problem, make: Callable[[float], Controller], lo: float = K_RANGE[0],
+    hi: float = K_RANGE[1],
+) -> float:
+    """``highest_stiffness`` for a family whose every stiffness grows as k and every damping
+    gain as √k (damping ratios held), all else fixed: the single-tier baselines. Such a
+    controller is ``make(k₀)`` with ``set_gain_scale(k/k₀, √(k/k₀))``, and the loop's one-tick
+    matrix is affine in those factors, so one linearisation at the home pose (at k₀, the
+    range's geometric middle) serves every k; the same grid and bisection."""
+    k0 = math.sqrt(lo * hi)
+    lin = home_linear(make_loop(problem, make(k0)), problem.references[0])
+    limits = problem.scoring.margins
+    return _highest(lambda k: lin.meets(limits, stiffness=k / k0), lo, hi)
+
+
+def _highest(ok: Callable[[float], bool], lo: float, hi: float) -> float:
     grid = [lo * 2.0**i for i in range(int(math.log2(hi / lo)) + 1)]
     good = [k for k in grid if ok(k)]
     if not good:
@@ -286,7 +302,7 @@ def osc_boundary(problem: Problem, zeta: float, ratio: float) -> float:
         tier = Tier(tuple(range(n)), k, ratio * k, zeta)
         return plan_controller(problem, Plan((tier,), joint_names=names), kind="osc")
 
-    return highest_stiffness(problem, make)
+    return highest_scaled(problem, make)
 
 
 def osc_from_coords(
@@ -311,7 +327,7 @@ def joint_boundary(problem: Problem, zeta: float, shape: np.ndarray) -> float:
     def make(c: float) -> Controller:
         return joint_controller(problem, c * shape, zeta)
 
-    return highest_stiffness(problem, make, lo=1e-3, hi=1e6)
+    return highest_scaled(problem, make, lo=1e-3, hi=1e6)
 
 
 def joint_from_coords(

@@ -56,6 +56,7 @@ __all__ = [
     "Margins",
     "delay_cap_ticks",
     "home_check",
+    "home_linear",
     "jacobian_fd",
     "loop_margins",
     "spectral_radius",
@@ -438,16 +439,18 @@ class LinearLoop:
             radius=rho,
         )
 
-    def meets(self, limits: MarginLimits) -> bool:
-        """Whether the loop is stable at its own gains and at each minimum margin."""
-        if not self.stable():
+    def meets(self, limits: MarginLimits, stiffness: float = 1.0) -> bool:
+        """Whether the loop is stable at its own gains and at each minimum margin; with
+        ``stiffness``, for every stiffness × that factor (ζ held) as its own gains."""
+        s0 = stiffness
+        if not self.stable(stiffness=s0):
             return False
-        if not all(self.stable(stiffness=s) for s in _ladder(limits.stiffness)):
+        if not all(self.stable(stiffness=s0 * s) for s in _ladder(limits.stiffness)):
             return False
         ticks = limits.delay_ms / (self.dt * 1e3)
-        if ticks > 0 and not self.stable(extra_delay=ticks):
+        if ticks > 0 and not self.stable(stiffness=s0, extra_delay=ticks):
             return False
-        return limits.bandwidth <= 1.0 or self.stable(bandwidth=limits.bandwidth)
+        return limits.bandwidth <= 1.0 or self.stable(stiffness=s0, bandwidth=limits.bandwidth)
 
 
 def delay_cap_ticks(loop: ClosedLoop) -> int:
@@ -567,8 +570,13 @@ def unstable_instant(
     return None
 
 
+def home_linear(loop: ClosedLoop, ref: Reference) -> LinearLoop:
+    """``loop`` linearised at the home pose (t = 0 of ``ref``), at rest."""
+    loop.controller.bind(ref)
+    return LinearLoop(loop, 0, loop.initial_state())
+
+
 def home_check(loop: ClosedLoop, ref: Reference, limits: MarginLimits) -> bool:
     """Whether the loop at the home pose (t = 0 of ``ref``) meets ``limits``: a cheap
     pre-check before any rollout."""
-    loop.controller.bind(ref)
-    return LinearLoop(loop, 0, loop.initial_state()).meets(limits)
+    return home_linear(loop, ref).meets(limits)
