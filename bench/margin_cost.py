@@ -6,9 +6,13 @@ two 1.2 s trajectories with a two-tier plan (every joint, then the distal half).
 CPU time (best of 3) of the nominal score without margins, with the three margins, and of
 the robust score a search trial makes (with margins, plus 4 perturbed plants checked for
 stability). Prints the seconds and the margins' share of the nominal score and of the
-search trial's score; last line ``margin_share_7=<a> ... margin_share_28=<c>
-trial_share_28=<t> score_s_28=<s>`` (shares of the nominal score with margins, and of
-the trial's).
+search trial's score, then how the margins split: linearising the loop at the sampled
+instants (controller and plant Jacobians) against locating the three margins on the
+linearised loop (eigenvalue solves), the linearisation also as a share of the score
+without margins. Last line ``margin_share_7=<a> ... margin_share_28=<c>
+trial_share_28=<t> score_s_28=<s> linearise_share_28=<l>`` (shares of the nominal score
+with margins, of the trial's, and the linearisation's share of the score without
+margins).
 
 Usage: python bench/margin_cost.py [JOINTS ...]
 """
@@ -25,10 +29,11 @@ from optimizer.blas import one_thread
 
 one_thread()
 
-from optimizer.evaluate import evaluate, plan_controller  # noqa: E402
+from optimizer.evaluate import evaluate, make_loop, plan_controller  # noqa: E402
 from optimizer.plan import Plan, Tier  # noqa: E402
 from optimizer.problem import load_problem  # noqa: E402
 from optimizer.robust import evaluate_robust, plant_set  # noqa: E402
+from optimizer.stability import LinearLoop  # noqa: E402
 
 
 def chain_urdf(n: int) -> str:
@@ -107,6 +112,7 @@ def main() -> None:
     counts = [int(x) for x in sys.argv[1:]] or [7, 14, 28]
     shares: dict[int, float] = {}
     trials: dict[int, float] = {}
+    lins: dict[int, float] = {}
     last = 0.0
     with tempfile.TemporaryDirectory() as tmp:
         for n in counts:
@@ -130,14 +136,30 @@ def main() -> None:
             a = best_cpu(lambda: run(False))
             b = best_cpu(lambda: run(True))
             c = best_cpu(trial)
+            loop = make_loop(prob, plan_controller(prob, plan))
+            instants = []
+            for ref in prob.references:
+                instants += [(ref, k, st) for k, st in loop.rollout(ref).snapshots]
+
+            def linearise(loop=loop, instants=instants):  # type: ignore[no-untyped-def]
+                for ref, k, st in instants:
+                    loop.controller.bind(ref)
+                    LinearLoop(loop, k, st)
+
+            lin = best_cpu(linearise)
             shares[n] = (b - a) / b
             trials[n] = (b - a) / c
+            lins[n] = lin / a
             last = b
             print(f"{n:3d} joints: score {a:6.3f} s CPU, with margins {b:6.3f} s, search trial "
                   f"{c:6.3f} s: margins {shares[n]:.0%} of the score, {trials[n]:.0%} of the "
                   f"trial (stiffness margin {s.stiffness_margin:.3g}, feasible {s.feasible})")
+            print(f"           margins {b - a:6.3f} s: linearising at {len(instants)} instants "
+                  f"{lin:6.3f} s ({lins[n]:.0%} of the score without margins), locating the "
+                  f"margins on it {b - a - lin:6.3f} s")
     print(" ".join(f"margin_share_{n}={v:.2f}" for n, v in shares.items())
-          + f" trial_share_{counts[-1]}={trials[counts[-1]]:.2f} score_s_{counts[-1]}={last:.3f}")
+          + f" trial_share_{counts[-1]}={trials[counts[-1]]:.2f} score_s_{counts[-1]}={last:.3f}"
+          + f" linearise_share_{counts[-1]}={lins[counts[-1]]:.2f}")
 
 
 if __name__ == "__main__":

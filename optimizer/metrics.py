@@ -2,18 +2,25 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
+from numba import njit
 
+from .jit import writable_cache
 from .simulate import Rollout
 
 __all__ = [
     "TrackMetrics",
     "iso_path_figures",
     "plane_crossings",
+    "plane_crossings_numpy",
     "track_metrics",
 ]
+
+writable_cache(Path(__file__).resolve().parent / "__pycache__")
 
 
 @dataclass(frozen=True)
@@ -62,7 +69,61 @@ def plane_crossings(
 
     Searches ticks within ``window`` of i, takes the crossing closest to p_ref[i] and
     interpolates linearly; falls back to the nearest attained point when none crosses.
+    Compiled; equal bit for bit to ``plane_crossings_numpy`` (the readable form; tests
+    check it).
     """
+    out = np.empty((len(idx), 3))
+    _crossings(
+        np.ascontiguousarray(p_ref, dtype=float), np.ascontiguousarray(v_ref, dtype=float),
+        np.ascontiguousarray(p, dtype=float), int(window),
+        np.ascontiguousarray(idx, dtype=np.int64), out,
+    )
+    return out
+
+
+@njit(cache=True)
+def _crossings(
+    p_ref: np.ndarray, v_ref: np.ndarray, p: np.ndarray, window: int, idx: np.ndarray,
+    out: np.ndarray,
+) -> None:
+    # the same operations as plane_crossings_numpy: norms as sqrt(x·x) and the plane
+    # distances as one matrix-vector product (numba's BLAS calls are numpy's), sums of
+    # three squares left to right as numpy's reduction adds them
+    N = p.shape[0]
+    for r in range(idx.shape[0]):
+        i = idx[r]
+        c = p_ref[i]
+        vr = v_ref[i].copy()
+        u = vr / math.sqrt(np.dot(vr, vr))
+        lo, hi = max(0, i - window), min(N, i + window + 1)
+        rel = p[lo:hi] - c
+        d = rel @ u
+        best = math.inf
+        found = False
+        for j in range(hi - lo - 1):
+            if np.signbit(d[j]) == np.signbit(d[j + 1]):
+                continue
+            w = d[j] / (d[j] - d[j + 1]) if d[j] != d[j + 1] else 0.0
+            x = p[lo + j] + w * (p[lo + j + 1] - p[lo + j])
+            xc = x - c
+            dist = math.sqrt(np.dot(xc, xc))
+            if not found or dist < best:
+                best, found = dist, True
+                out[r] = x
+        if not found:
+            k_best, best = 0, math.inf
+            for j in range(hi - lo):
+                s2 = rel[j, 0] * rel[j, 0] + rel[j, 1] * rel[j, 1] + rel[j, 2] * rel[j, 2]
+                dn = math.sqrt(s2)
+                if dn < best or j == 0:
+                    k_best, best = j, dn
+            out[r] = p[lo + k_best]
+
+
+def plane_crossings_numpy(
+    p_ref: np.ndarray, v_ref: np.ndarray, p: np.ndarray, window: int, idx: np.ndarray
+) -> np.ndarray:
+    """``plane_crossings`` written with numpy (the readable form the kernel compiles)."""
     out = np.empty((len(idx), 3))
     N = len(p)
     for r, i in enumerate(idx):

@@ -43,3 +43,25 @@ def test_plane_crossings_find_a_lagging_path() -> None:
     x = plane_crossings(p_ref, v_ref, p, 100, idx)
     np.testing.assert_allclose(x[:, 0], p_ref[idx, 0], atol=1e-12)
     np.testing.assert_allclose(x[:, 1], 0.002, atol=1e-12)
+
+
+def test_compiled_plane_crossings_equal_the_numpy_form_bit_for_bit() -> None:
+    """The compiled search (crossings, and the nearest point where none crosses) gives the
+    numpy form's points bit for bit: path accuracy of runs made before reproduces."""
+    from optimizer.metrics import plane_crossings_numpy
+
+    rng = np.random.default_rng(5)
+    N = 900
+    t = np.linspace(0.0, 1.0, N)
+    p_ref = np.column_stack([0.3 * np.sin(3 * t), 0.2 * t, 0.1 * np.cos(5 * t)])
+    v_ref = np.gradient(p_ref, t, axis=0)
+    fallbacks = 0
+    for lag, window in ((3, 40), (25, 40), (60, 10), (0, 3)):
+        p = np.roll(p_ref, lag, axis=0) + 1e-4 * rng.standard_normal((N, 3))
+        idx = np.arange(5, N - 5, 3)
+        a = plane_crossings_numpy(p_ref, v_ref, p, window, idx)
+        b = plane_crossings(p_ref, v_ref, p, window, idx)
+        assert np.array_equal(a, b)
+        # points taken as the nearest attained point: no crossing within the window
+        fallbacks += int(np.sum(np.all(np.isin(b, p), axis=1)))
+    assert fallbacks > 0  # both branches ran
