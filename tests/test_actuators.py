@@ -145,3 +145,21 @@ def test_bad_actuator_values_are_rejected() -> None:
             FirstOrder(bad)
     with pytest.raises(ValueError, match="damping_ratio"):
         SecondOrder(10.0, 0.0)
+
+
+def test_a_bank_is_discretised_once_per_actuators_and_step(demo) -> None:
+    """discretize remembers its result (loops for every trial, plant and margin factor ask
+    for the same banks); the shared arrays are read-only, and other actuators or another
+    step give another bank."""
+    import dataclasses
+
+    from optimizer.actuators import discretize
+
+    acts = demo.actuators
+    b = discretize(acts, 1e-3)
+    assert discretize(list(acts), 1e-3) is b
+    assert not b.Ad.flags.writeable and not b.Dm.flags.writeable
+    slower = [dataclasses.replace(a, model=a.model.scaled(0.5)) for a in acts]
+    assert discretize(slower, 1e-3) is not b
+    assert discretize(acts, 5e-4) is not b
+    assert not np.array_equal(discretize(slower, 1e-3).Ad, b.Ad)

@@ -12,6 +12,7 @@ torque whose impulse the plant integrator receives.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -71,7 +72,16 @@ def continuous_bank(
 
 
 def discretize(actuators: Sequence[JointActuator], h: float) -> DiscreteBank:
-    """Exact ZOH discretisation of the bank at step ``h`` [s]."""
+    """Exact ZOH discretisation of the bank at step ``h`` [s].
+
+    Remembered per (actuators, h) in this process (the bank's arrays are read-only): a
+    search builds a loop for every trial and plant, and the margins rescale the same
+    actuators by the same factors at every sampled instant."""
+    return _discretize(tuple(actuators), float(h))
+
+
+@functools.lru_cache(maxsize=512)
+def _discretize(actuators: tuple[JointActuator, ...], h: float) -> DiscreteBank:
     A, B, C = continuous_bank(actuators)
     nx = A.shape[0]
     big = np.zeros((3 * nx, 3 * nx))

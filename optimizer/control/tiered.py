@@ -119,6 +119,7 @@ class TieredController:
         self.raw = self._out[n + 6 + K * n :]
         """After ``command``: the summed command before any clipping (n,) [N·m]."""
         self.law = plan.law
+        self._bounded = plan.law == "bounded"
         self.qp_solver = qp_solver
         step = np.full(n, np.inf) if rate_limits is None else np.asarray(rate_limits) * settings.dt
         self._rate_step = step
@@ -235,9 +236,9 @@ class TieredController:
                 H, J6, dJv, h, Minv, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
             )
         )
-        if self.law == "bounded" and self._clip and status == 0:
-            self._bound(J6, Minv)
-        if self._clip and self.law == "bounded":
+        if self._bounded and self._clip:
+            if status == 0:
+                self._bound(J6, Minv)
             self._prev = self.tau.copy()
         return status
 
