@@ -777,17 +777,17 @@ def _stop_pool(pool: ProcessPoolExecutor) -> None:
     pool.shutdown(wait=True, cancel_futures=True)
 
 
-def run_worker(job: WorkerJob) -> int:
-    """Run ``job.n_trials`` trials of one study in this process; returns trials run (fewer
-    when Ctrl-C stopped it: the parent, interrupted too, ranks what finished)."""
+def run_worker(job: WorkerJob) -> tuple[int, bool]:
+    """Run ``job.n_trials`` trials of one study in this process; returns (trials run,
+    whether a Ctrl-C stopped it: then fewer ran, and the parent stops the run too)."""
     quiet_optuna()
     problem = _worker_problem(job)
     opts = study_options(problem, job.kind)
     opts["x0"] = dict(job.x0) or None
     study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts)
     n0 = finished(study)
-    if interrupt.requested():  # Ctrl-C came while it started: run nothing
-        return 0
+    if interrupt.requested():  # Ctrl-C came while it started or waited: run nothing
+        return 0, True
     try:
         study.optimize(
             objective(problem, job.kind, job.prune, job.objectives),
@@ -796,8 +796,8 @@ def run_worker(job: WorkerJob) -> int:
             callbacks=[Budget(job.total)] if job.total else [],
         )
     except KeyboardInterrupt:  # the trial in flight is already ended; say so quietly
-        return max(0, finished(study) - n0)
-    return job.n_trials
+        return max(0, finished(study) - n0), True
+    return job.n_trials, interrupt.requested()
 
 
 class Budget:
@@ -922,8 +922,13 @@ def _run_jobs(
                 f.result(timeout=1.0 / len(futures))
             except TimeoutError:
                 pass
-    for f in futures:
-        f.result()  # re-raise a worker's error
+    stopped = [f.result()[1] for f in futures]  # re-raises a worker's error
+    if any(stopped):
+        # The Ctrl-C reached the workers; this process has had it too, and normally is
+        # already unwinding. Should its KeyboardInterrupt have been lost (one Ctrl-C test in
+        # 20 beside a CPU hog ended with exit 0 and the next studies run empty), the run
+        # still ends as interrupted rather than ranking a cut-short study as finished.
+        raise KeyboardInterrupt
 
 
 # -- ranking -----------------------------------------------------------------------

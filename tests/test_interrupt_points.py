@@ -65,3 +65,25 @@ def test_it_interrupts_once_per_objective_and_the_old_handler_comes_back() -> No
             ran.append("clean-up finished")
     assert ran == ["clean-up finished"]  # and the block raised the held one at its end
     assert signal.getsignal(signal.SIGINT) is before
+
+
+def test_a_worker_stopped_by_ctrl_c_stops_the_run_even_if_the_parent_missed_it() -> None:
+    """A worker reports that a Ctrl-C stopped it; the parent raises KeyboardInterrupt
+    instead of taking the cut-short study as finished (a lost interrupt in the parent once
+    let a run go on and exit 0)."""
+    from concurrent.futures import Future
+
+    from optimizer import search as srch
+
+    class Pool:
+        def __init__(self, results):  # type: ignore[no-untyped-def]
+            self.results = list(results)
+
+        def submit(self, fn, job):  # type: ignore[no-untyped-def]
+            f: Future = Future()
+            f.set_result(self.results.pop(0))
+            return f
+
+    srch._run_jobs(Pool([(3, False), (2, False)]), [None, None], None, None)  # type: ignore[arg-type]
+    with pytest.raises(KeyboardInterrupt):
+        srch._run_jobs(Pool([(3, False), (1, True)]), [None, None], None, None)  # type: ignore[arg-type]
