@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import optuna
 
-from . import __version__, ladder, rundir
+from . import __version__, interrupt, ladder, rundir
 from . import search as srch
 from .evaluate import plan_controller
 from .exceptions import InputError
@@ -156,6 +156,7 @@ def run_studies(
     try:
         with srch.worker_pool(settings.workers) as pool:  # one pool for the three studies
             for kind, name, budget, objectives in runs:
+                interrupt.check()  # a Ctrl-C a finaliser swallowed
                 n = budget
                 if kind == "plan":
                     enqueue += _tuned_osc_seed(problem, studies["osc"])
@@ -188,8 +189,10 @@ def run_studies(
                     pool=pool,
                 )
                 progress(studies[kind])
+            interrupt.check()
     except KeyboardInterrupt:
         interrupted = True
+        interrupt.clear()  # handled: rank what finished
         for kind, name, _, objectives in runs:  # what had finished, for the ranking
             if kind not in studies:
                 studies[kind] = srch.open_study(

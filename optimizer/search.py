@@ -915,6 +915,7 @@ def _run_jobs(
     with _sigint_blocked():
         futures = [pool.submit(run_worker, j) for j in jobs]
     while not all(f.done() for f in futures):
+        interrupt.check()  # one a finaliser swallowed: stop the workers now
         if on_progress:
             on_progress(study)
         for f in futures:

@@ -87,3 +87,28 @@ def test_a_worker_stopped_by_ctrl_c_stops_the_run_even_if_the_parent_missed_it()
     srch._run_jobs(Pool([(3, False), (2, False)]), [None, None], None, None)  # type: ignore[arg-type]
     with pytest.raises(KeyboardInterrupt):
         srch._run_jobs(Pool([(3, False), (1, True)]), [None, None], None, None)  # type: ignore[arg-type]
+
+
+def test_a_ctrl_c_a_finaliser_swallows_is_raised_at_the_next_check(monkeypatch) -> None:
+    """Python drops an exception raised in a ``__del__``: a Ctrl-C landing there was lost.
+    Under ``noting`` it is noted too, and ``check`` raises it; ``clear`` forgets it."""
+
+    class Finalised:
+        def __del__(self) -> None:
+            _ctrl_c()  # the KeyboardInterrupt raised here does not get out
+
+    import sys
+
+    dropped = []
+    monkeypatch.setattr(sys, "unraisablehook", lambda u: dropped.append(u.exc_type))
+    ran = []
+    with interrupt.noting():
+        obj = Finalised()
+        del obj
+        ran.append("went on")  # the interrupt was swallowed
+        with pytest.raises(KeyboardInterrupt):
+            interrupt.check()
+        interrupt.clear()
+        interrupt.check()  # handled: nothing pending
+    assert ran == ["went on"]
+    assert dropped == [KeyboardInterrupt]  # Python's "Exception ignored in ..."

@@ -16,7 +16,7 @@ import warnings
 from collections.abc import Sequence
 from types import ModuleType
 
-from .. import __version__
+from .. import __version__, interrupt
 from ..exceptions import InputError, TierplanError, printable
 from . import (
     check,
@@ -79,8 +79,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser().print_help()
         return EXIT_INPUT
+    with interrupt.noting():
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     try:
-        return COMMANDS[args.command].run(args)
+        rc = COMMANDS[args.command].run(args)
+        interrupt.check()  # a Ctrl-C that a finaliser swallowed on its way
+        return rc
     except InputError as err:
         if args.debug:
             raise
