@@ -25,7 +25,7 @@ from __future__ import annotations
 import contextlib
 import signal
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from typing import Any
 
 __all__ = [
@@ -68,18 +68,28 @@ def _noting_handler(signum: int, frame: Any) -> None:
 
 
 @contextlib.contextmanager
-def noting() -> Iterator[None]:
-    """In the block a Ctrl-C raises KeyboardInterrupt at once and is noted (see above);
-    the handler before it comes back after it."""
+def _handled_by(handler: Callable[[int, Any], None]) -> Iterator[list[bool]]:
+    """``handler`` takes SIGINT in the block (in the main thread; elsewhere the block runs
+    as it is); the handler before it comes back after it, and nothing stays pending. The
+    list it gives says, after the block, whether a Ctrl-C was held at its end."""
+    held = [False]
     if threading.current_thread() is not threading.main_thread():
-        yield
+        yield held
         return
-    old = signal.signal(signal.SIGINT, _noting_handler)
+    old = signal.signal(signal.SIGINT, handler)
     try:
-        yield
+        yield held
     finally:
-        signal.signal(signal.SIGINT, old)
-        _S.requested = False
+        signal.signal(signal.SIGINT, old)  # from here a Ctrl-C goes to the old handler
+        held[0] = _S.requested
+        _S.requested, _S.in_objective, _S.critical = False, False, 0
+
+
+@contextlib.contextmanager
+def noting() -> Iterator[None]:
+    """In the block a Ctrl-C raises KeyboardInterrupt at once and is noted (see above)."""
+    with _handled_by(_noting_handler):
+        yield
 
 
 def check() -> None:
@@ -105,18 +115,10 @@ def requested() -> bool:
 
 @contextlib.contextmanager
 def taking() -> Iterator[None]:
-    """Trials run in this block (the main thread; elsewhere it runs as it is). A Ctrl-C
-    held to its end is raised after it."""
-    if threading.current_thread() is not threading.main_thread():
+    """Trials run in this block (see above). A Ctrl-C held to its end is raised after it."""
+    with _handled_by(_handler) as held:
         yield
-        return
-    old = signal.signal(signal.SIGINT, _handler)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, old)
-        held, _S.requested, _S.in_objective, _S.critical = _S.requested, False, False, 0
-    if held:
+    if held[0]:
         raise KeyboardInterrupt
 
 
