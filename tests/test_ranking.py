@@ -94,3 +94,22 @@ def test_relative_change_against_a_baseline() -> None:
     assert relative(_e(None), _e(2.0)) is None and relative(_e(1.0), _e(0.0)) is None
     robust = Entry.from_dict(_robust(9.0, (1.0, 1.0)).to_dict())
     assert robust.value == pytest.approx(robust.robust_error)  # robust error, not nominal
+
+
+def test_the_compare_table_calls_a_plant_failure_not_feasible() -> None:
+    """``compare``'s 'feasible' cell agrees with the line under the table: a candidate
+    feasible on the nominal plant but failing on one of its perturbed plants is 'no'."""
+    from rich.console import Console
+
+    from optimizer.report import reasons, robustness_table
+
+    held = RobustScore(_score(1.0, label="holds"), (_score(1.2), _score(1.3)), plants=2)
+    fails = RobustScore(
+        _score(1.0, label="fails"), (_score(1.2), _score(1.3, feasible=False)), plants=2
+    )
+    con = Console(width=250, record=True, color_system=None)
+    con.print(robustness_table([held, fails], 2))
+    rows = {ln.split("│")[1].strip(): ln for ln in con.export_text().splitlines() if "│" in ln}
+    assert rows["holds"].rstrip(" │").endswith("yes")
+    assert "no (below)" in rows["fails"] and "1/2" in rows["fails"]
+    assert [ln for ln in reasons([held, fails]) if "fails" in ln]
