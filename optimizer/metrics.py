@@ -93,7 +93,7 @@ def _crossings(
     for r in range(idx.shape[0]):
         i = idx[r]
         c = p_ref[i]
-        vr = v_ref[i].copy()
+        vr = v_ref[i]
         u = vr / math.sqrt(np.dot(vr, vr))
         lo, hi = max(0, i - window), min(N, i + window + 1)
         rel = p[lo:hi] - c

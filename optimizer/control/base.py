@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -14,6 +14,7 @@ __all__ = [
     "AXES",
     "ControlSettings",
     "Controller",
+    "at_each_scale",
 ]
 
 #: Task axes by the names used in problem files, in J's row order.
@@ -84,3 +85,20 @@ class Controller(Protocol):
         clip=False)`` then ``command``; the kinematics are computed once (linearisation).
         The plan's gains are restored after."""
         ...
+
+
+def at_each_scale(
+    ctrl: Controller, scales: Sequence[tuple[float, float]], law: Callable[[], object]
+) -> np.ndarray:
+    """``ctrl.tau`` after ``law()`` (the law's kernel on kinematics already computed) at each
+    (stiffness, damping) pair of ``scales``, the clip lifted, as rows; the plan's gains are
+    restored after. The body of every controller's ``commands``."""
+    out = np.empty((len(scales), ctrl.tau.shape[0]))
+    try:
+        for i, (s, d) in enumerate(scales):
+            ctrl.set_gain_scale(s, d, clip=False)
+            law()
+            out[i] = ctrl.tau
+    finally:
+        ctrl.set_gain_scale()
+    return out

@@ -22,7 +22,7 @@ import pinocchio as pin
 from ..arm import LWA, Arm
 from ..trajectories import Reference
 from . import kernels
-from .base import ControlSettings
+from .base import ControlSettings, at_each_scale
 
 __all__ = [
     "ClikSolution",
@@ -204,7 +204,9 @@ class JointSpaceController:
         sol = self.sol
         self._jref = np.ascontiguousarray(np.hstack([sol.q, sol.v, sol.a]), dtype=float)
 
-    def _kinematics(self, q: np.ndarray, vm: np.ndarray) -> tuple[np.ndarray, ...]:
+    def _kinematics(
+        self, q: np.ndarray, vm: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Tip placement (4×4), M and h at (q, v): the law's pinocchio calls."""
         model, data = self.arm.model, self.data
         if self.sol is None:
@@ -224,22 +226,20 @@ class JointSpaceController:
         self, k: int, q: np.ndarray, vm: np.ndarray, scales: Sequence[tuple[float, float]]
     ) -> np.ndarray:
         """As ``TieredController.commands``: the unclipped command per gain-factor pair."""
-        H, M, h = self._kinematics(q, vm)
-        out = np.empty((len(scales), self.arm.n))
-        try:
-            for i, (s, d) in enumerate(scales):
-                self.set_gain_scale(s, d, clip=False)
-                kernels.joint_command(
-                    H, M, h, q, vm, self._refs, self._jref, k, self._gp, self._out
-                )
-                out[i] = self.tau
-        finally:
-            self.set_gain_scale()
-        return out
+        kin = self._kinematics(q, vm)
+        return at_each_scale(
+            self, scales,
+            lambda: kernels.joint_command(
+                *kin, q, vm, self._refs, self._jref, k, self._gp, self._out
+            ),
+        )
 
-    def command_numpy(self, k: int, q: np.ndarray, vm: np.ndarray) -> np.ndarray:
-        """The same law written with numpy (the readable form ``command`` compiles);
-        returns the clipped command. For tests."""
+    def command_numpy(
+        self, k: int, q: np.ndarray, vm: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The same law written with numpy (the readable form ``command`` compiles): the
+        clipped command, the tip pose error and the PD part, as ``tau``, ``e6`` and
+        ``tier_tau[0]`` after ``command``. For tests."""
         model, data, fid = self.arm.model, self.data, self.arm.tip_id
         sol, ref = self.sol, self.ref
         if sol is None or ref is None:
@@ -248,9 +248,8 @@ class JointSpaceController:
         f = data.oMf[fid]
         rv = np.empty(3)
         kernels.log3(ref.R[k] @ f.rotation.T, rv)
-        self.e6_numpy = np.concatenate([ref.p[k] - f.translation, rv])
+        e6 = np.concatenate([ref.p[k] - f.translation, rv])
         M = pin.crba(model, data, q)
         h = pin.nonLinearEffects(model, data, q, vm)
         t = M @ (sol.a[k] + self.kp * (sol.q[k] - q) + self.kd * (sol.v[k] - vm)) + h
-        self.pd_numpy = t - h
-        return np.minimum(np.maximum(t, -self.effort), self.effort)
+        return np.minimum(np.maximum(t, -self.effort), self.effort), e6, t - h

@@ -35,7 +35,7 @@ from ..arm import LWA, Arm
 from ..plan import Plan
 from ..trajectories import Reference
 from . import kernels
-from .base import ControlSettings
+from .base import ControlSettings, at_each_scale
 
 __all__ = [
     "TieredController",
@@ -250,17 +250,12 @@ class TieredController:
         is what ``set_gain_scale(s, d, clip=False)`` then ``command`` gives, bit for bit.
         The plan's own gains are restored after."""
         kin = self._kinematics(q, vm)
-        out = np.empty((len(scales), self.arm.n))
-        try:
-            for i, (s, d) in enumerate(scales):
-                self.set_gain_scale(s, d, clip=False)
-                kernels.tiered_command(
-                    *kin, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
-                )
-                out[i] = self.tau
-        finally:
-            self.set_gain_scale()
-        return out
+        return at_each_scale(
+            self, scales,
+            lambda: kernels.tiered_command(
+                *kin, q, vm, self._refs, k, self._ip, self._fp, self._ws, self._out
+            ),
+        )
 
     def _bound(self, J6: np.ndarray, Minv: np.ndarray) -> None:
         """Replace the clipped sum by the bounded law's command where a bound binds."""
