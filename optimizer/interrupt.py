@@ -126,8 +126,7 @@ def taking() -> Iterator[None]:
 def objective() -> Iterator[None]:
     """An objective runs in this block: a Ctrl-C interrupts it (one held raises at once)."""
     _S.in_objective = True
-    if _S.requested and _S.critical == 0:  # checked after the flag: none slips between
-        _raise_now()
+    checkpoint()  # after the flag is set: no Ctrl-C slips in between unraised
     try:
         yield
     finally:
