@@ -51,7 +51,7 @@ def same_trials(prob, done: list, workers: int, folder: Path) -> float:
     so the speedup is a conservative one."""
     enqueue = [(t.params, {}) for t in done if t.params]
     t0 = time.perf_counter()
-    with srch.worker_pool(workers) as pool:
+    with srch.worker_pool(workers, prob) as pool:
         srch.run_search(
             prob, str(folder / f"same{workers}.journal"), "same", "plan", len(enqueue),
             seed=11, workers=workers, prune=False, enqueue=enqueue, pool=pool,

@@ -129,32 +129,35 @@ def run_studies(
     a resume); the others are scored as they are. ``on_progress(kind, total, study)``
     is called about once a second while a study runs, and once when it ends.
     """
-    if settings.informed:
-        plans = ladder.ladder_variants(problem)
-        for law in problem.search.laws:  # every law the search may choose gets the ladder
-            if law != "summed":
-                plans += [
-                    dataclasses.replace(p, law=law, label=f"{p.label}, {law}") for p in plans[:1]
-                ]
-        seeded = [*(Seeded(p, "ladder") for p in plans), *seeded]
-    enqueue, direct = [], []
-    for s in seeded:
-        params = srch.plan_params(s.plan, problem)
-        if params is None:
-            direct.append(s)
-        else:
-            attrs = {"source": s.source, "label": s.plan.label, **s.extra}
-            enqueue.append((params, attrs))
-    t0 = time.perf_counter()
-    studies: dict[str, optuna.Study] = {}
-    runs = [  # baselines first: the plan study starts from the tuned single-tier OSC
-        ("osc", settings.study + ".osc", settings.baseline_trials, settings.objectives[:1]),
-        ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
-        ("plan", settings.study, settings.trials, settings.objectives),
-    ]
-    interrupted = False
-    try:
-        with srch.worker_pool(settings.workers) as pool:  # one pool for the three studies
+    # one pool for the three studies, started first: its processes import and load the
+    # problem while this one computes the ladder plans and the baselines' seeds
+    with srch.worker_pool(settings.workers, problem) as pool:
+        if settings.informed:
+            plans = ladder.ladder_variants(problem)
+            for law in problem.search.laws:  # every law the search may choose gets the ladder
+                if law != "summed":
+                    plans += [
+                        dataclasses.replace(p, law=law, label=f"{p.label}, {law}")
+                        for p in plans[:1]
+                    ]
+            seeded = [*(Seeded(p, "ladder") for p in plans), *seeded]
+        enqueue, direct = [], []
+        for s in seeded:
+            params = srch.plan_params(s.plan, problem)
+            if params is None:
+                direct.append(s)
+            else:
+                attrs = {"source": s.source, "label": s.plan.label, **s.extra}
+                enqueue.append((params, attrs))
+        t0 = time.perf_counter()
+        studies: dict[str, optuna.Study] = {}
+        runs = [  # baselines first: the plan study starts from the tuned single-tier OSC
+            ("osc", settings.study + ".osc", settings.baseline_trials, settings.objectives[:1]),
+            ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
+            ("plan", settings.study, settings.trials, settings.objectives),
+        ]
+        interrupted = False
+        try:
             for kind, name, budget, objectives in runs:
                 interrupt.check()  # a Ctrl-C a finaliser swallowed
                 n = budget
@@ -190,16 +193,18 @@ def run_studies(
                 )
                 progress(studies[kind])
             interrupt.check()
-    except KeyboardInterrupt:
-        interrupted = True
-        interrupt.clear()  # handled: rank what finished
-        for kind, name, _, objectives in runs:  # what had finished, for the ranking
-            if kind not in studies:
-                studies[kind] = srch.open_study(
-                    settings.storage, name, settings.seed, settings.prune, objectives
-                )
-        for st in studies.values():
-            srch.abandon_own(st)
+        except KeyboardInterrupt:
+            interrupted = True
+            if pool is not None:  # the workers end before what finished is read
+                srch.stop_pool(pool)
+            interrupt.clear()  # handled: rank what finished
+            for kind, name, _, objectives in runs:  # what had finished, for the ranking
+                if kind not in studies:
+                    studies[kind] = srch.open_study(
+                        settings.storage, name, settings.seed, settings.prune, objectives
+                    )
+            for st in studies.values():
+                srch.abandon_own(st)
     elapsed = time.perf_counter() - t0
 
     plan_e = srch.entries(studies["plan"], "search")

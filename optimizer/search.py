@@ -72,6 +72,7 @@ __all__ = [
     "feasible",
     "finished",
     "fresh_seed",
+    "job_sizes",
     "late_gain",
     "make_sampler",
     "objective",
@@ -84,6 +85,7 @@ __all__ = [
     "redact",
     "run_search",
     "run_worker",
+    "stop_pool",
     "study_options",
     "suggest_plan",
     "worker_pool",
@@ -557,11 +559,13 @@ def open_study(
     sampler: str = "tpe",
     x0: dict[str, float] | None = None,
     warmup: int = 0,
+    opened: Any = None,
 ) -> optuna.Study:
     """Create or load a study (resume with the same name).
 
-    ``warmup``: steps (trajectories) before pruning may stop a trial. Raises InputError
-    when the stored study has other objectives than asked for.
+    ``warmup``: steps (trajectories) before pruning may stop a trial; ``opened``: the
+    storage ``storage`` names, already open (a worker keeps one for all its jobs). Raises
+    InputError when the stored study has other objectives than asked for.
     """
     quiet_optuna()
     pruner = (
@@ -570,7 +574,7 @@ def open_study(
         else optuna.pruners.NopPruner()
     )
     want = directions(objectives)
-    st = open_storage(storage)
+    st = open_storage(storage) if opened is None else opened
     try:
         study = optuna.load_study(
             study_name=name, storage=st, sampler=make_sampler(seed, sampler, x0), pruner=pruner
@@ -699,8 +703,9 @@ def study_options(
 STOP_GRACE_S = 20.0
 
 
-def worker_start() -> None:
-    """Pool initializer of a worker process: how it takes Ctrl-C.
+def worker_start(problem_path: str | None = None, actuator_files: tuple[str, ...] = ()) -> None:
+    """Pool initializer of a worker process: how it takes Ctrl-C, then (with
+    ``problem_path``) the problem loaded ahead of the first job.
 
     A terminal's Ctrl-C reaches every process of the group, and the parent then sends
     SIGINT again to stop its workers. A Ctrl-C stops the trial in flight (KeyboardInterrupt
@@ -712,6 +717,15 @@ def worker_start() -> None:
     interrupt.install()
     if hasattr(signal, "pthread_sigmask"):  # the parent spawned it with SIGINT blocked
         signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
+    if problem_path is not None:
+        # an error here would break the pool: the first job loads the file again and
+        # reports what is wrong with it
+        with contextlib.suppress(Exception):
+            _loaded_problem(problem_path, actuator_files)
+
+
+def _started() -> None:
+    """A job that does nothing: submitting one per worker starts the processes now."""
 
 
 @contextlib.contextmanager
@@ -727,24 +741,36 @@ def _sigint_blocked() -> Iterator[None]:
         signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
-#: In a worker process: problems it has loaded, by file and actuator files (a run's
-#: studies share one pool, so a worker loads the problem once, not once per study).
+#: In a worker process: problems it has loaded, by file and actuator files, and storages
+#: it has opened (a run's studies share one pool and a study's trials come in several
+#: jobs, so a worker loads the problem and replays a journal once, not once per job).
 _PROBLEMS: dict[tuple[str, tuple[str, ...]], Problem] = {}
+_STORAGES: dict[str, Any] = {}
 
 
-def _worker_problem(job: WorkerJob) -> Problem:
-    key = (job.problem_path, job.actuator_files)
+def _loaded_problem(path: str, actuator_files: tuple[str, ...]) -> Problem:
+    key = (path, actuator_files)
     if key not in _PROBLEMS:
-        _PROBLEMS[key] = load_problem(
-            job.problem_path, check_reach=False, actuator_files=job.actuator_files
-        )
+        _PROBLEMS[key] = load_problem(path, check_reach=False, actuator_files=actuator_files)
     return _PROBLEMS[key]
 
 
+def _opened_storage(spec: str) -> Any:
+    if spec not in _STORAGES:
+        _STORAGES[spec] = open_storage(spec)
+    return _STORAGES[spec]
+
+
 @contextlib.contextmanager
-def worker_pool(workers: int) -> Iterator[ProcessPoolExecutor | None]:
+def worker_pool(
+    workers: int, problem: Problem | None = None
+) -> Iterator[ProcessPoolExecutor | None]:
     """One pool of ``workers`` processes for every study of a run (None for one worker):
-    each process imports numba, pinocchio and scipy once and loads the problem once."""
+    each process imports numba, pinocchio and scipy once and loads the problem once.
+
+    The processes start at once (not at the first job), and with ``problem`` (loaded from
+    a file) each loads it as it starts: their start-up overlaps what the caller computes
+    before its first study."""
     if workers <= 1:
         yield None
         return
@@ -752,16 +778,24 @@ def worker_pool(workers: int) -> Iterator[ProcessPoolExecutor | None]:
 
     one_thread()  # the workers inherit the environment before their numpy loads
     ctx = multiprocessing.get_context("spawn")
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_start)
+    args: tuple[Any, ...] = ()
+    if problem is not None and problem.path is not None:
+        args = (str(problem.path), tuple(str(a) for a in problem.actuator_files))
+    pool = ProcessPoolExecutor(
+        max_workers=workers, mp_context=ctx, initializer=worker_start, initargs=args
+    )
     try:
+        with _sigint_blocked():  # see _run_jobs; a submit starts a process while none idles
+            for _ in range(workers):
+                pool.submit(_started)
         yield pool
     except BaseException:
-        _stop_pool(pool)
+        stop_pool(pool)
         raise
     pool.shutdown(wait=True)
 
 
-def _stop_pool(pool: ProcessPoolExecutor) -> None:
+def stop_pool(pool: ProcessPoolExecutor) -> None:
     """Ctrl-C to every worker (each abandons its trial in flight), a grace period, then
     SIGKILL for any that is still there; the pool is shut down."""
     procs = _pool_processes(pool)
@@ -781,10 +815,13 @@ def run_worker(job: WorkerJob) -> tuple[int, bool]:
     """Run ``job.n_trials`` trials of one study in this process; returns (trials run,
     whether a Ctrl-C stopped it: then fewer ran, and the parent stops the run too)."""
     quiet_optuna()
-    problem = _worker_problem(job)
+    problem = _loaded_problem(job.problem_path, job.actuator_files)
     opts = study_options(problem, job.kind)
     opts["x0"] = dict(job.x0) or None
-    study = open_study(job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts)
+    study = open_study(
+        job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts,
+        opened=_opened_storage(job.storage),
+    )  # fmt: skip
     n0 = finished(study)
     if interrupt.requested():  # Ctrl-C came while it started or waited: run nothing
         return 0, True
@@ -875,7 +912,6 @@ def run_search(
                 catch=(Exception,),
             )
         return study
-    shares = [remaining // workers + (1 if i < remaining % workers else 0) for i in range(workers)]
     jobs = [
         WorkerJob(
             str(problem.path),
@@ -890,15 +926,26 @@ def run_search(
             tuple((opts["x0"] or {}).items()),
             0 if add else total_trials,
         )
-        for i, s in enumerate(shares)
-        if s > 0
+        for i, s in enumerate(job_sizes(remaining, workers))
     ]
     with contextlib.ExitStack() as own:
         if pool is None:
-            pool = own.enter_context(worker_pool(len(jobs)))
+            pool = own.enter_context(worker_pool(min(workers, len(jobs)), problem))
         assert pool is not None
         _run_jobs(pool, jobs, study, on_progress)
     return study
+
+
+def job_sizes(trials: int, workers: int) -> list[int]:
+    """Trials per job when ``workers`` processes share ``trials``: jobs that shrink as
+    the work left does (a worker that ends a job takes the next one from the pool's queue),
+    so the processes finish close together whatever each trial costs. They sum to
+    ``trials``."""
+    out, left = [], trials
+    while left > 0:
+        out.append(max(1, left // (2 * workers)))
+        left -= out[-1]
+    return out
 
 
 def _run_jobs(

@@ -95,6 +95,28 @@ def test_two_workers_share_one_storage(planar, tmp_path) -> None:
     assert len(set(params)) == len(params)  # each worker seeded differently
 
 
+@pytest.mark.parametrize("trials, workers", [(40, 2), (7, 3), (1, 2), (401, 2), (0, 2)])
+def test_job_sizes_sum_to_the_trials_and_shrink(trials, workers) -> None:
+    """The shares sum to the trials (none run twice or lost), never grow, end in ones (the
+    last jobs are short, so workers end together) and the first round gives each worker
+    a job when there are enough trials."""
+    sizes = srch.job_sizes(trials, workers)
+    assert sum(sizes) == trials and all(s >= 1 for s in sizes)
+    assert sizes == sorted(sizes, reverse=True)
+    if trials:
+        assert sizes[-1] == 1
+    if trials >= 2 * workers:
+        assert len(sizes) >= workers and sizes[0] <= trials // workers
+
+
+def test_a_pool_starts_its_workers_before_any_job(planar) -> None:
+    """worker_pool spawns every process when it opens (they import and load the problem
+    while the caller works), not at the first job."""
+    with srch.worker_pool(2, planar) as pool:
+        assert pool is not None
+        assert len(srch._pool_processes(pool)) == 2
+
+
 def test_same_seed_same_trials(planar, tmp_path) -> None:
     """With one worker the same seed proposes and scores the same trials."""
     a = srch.run_search(planar, str(tmp_path / "a.journal"), "d", "plan", 8, seed=5)
