@@ -129,9 +129,16 @@ def run_studies(
     a resume); the others are scored as they are. ``on_progress(kind, total, study)``
     is called about once a second while a study runs, and once when it ends.
     """
+    runs = [  # baselines first: the plan study starts from the tuned single-tier OSC
+        ("osc", settings.study + ".osc", settings.baseline_trials, settings.objectives[:1]),
+        ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
+        ("plan", settings.study, settings.trials, settings.objectives),
+    ]
     # one pool for the three studies, started first: its processes import and load the
-    # problem while this one computes the ladder plans and the baselines' seeds
-    with srch.worker_pool(settings.workers, problem) as pool:
+    # problem while this one computes the ladder plans and the baselines' seeds (none
+    # when every study already holds its budget: a resume that only ranks)
+    workers = settings.workers if _trials_to_run(settings, runs) else 1
+    with srch.worker_pool(workers, problem) as pool:
         if settings.informed:
             plans = ladder.ladder_variants(problem)
             for law in problem.search.laws:  # every law the search may choose gets the ladder
@@ -151,11 +158,6 @@ def run_studies(
                 enqueue.append((params, attrs))
         t0 = time.perf_counter()
         studies: dict[str, optuna.Study] = {}
-        runs = [  # baselines first: the plan study starts from the tuned single-tier OSC
-            ("osc", settings.study + ".osc", settings.baseline_trials, settings.objectives[:1]),
-            ("joint_space", settings.study + ".joint", settings.baseline_trials, ("error",)),
-            ("plan", settings.study, settings.trials, settings.objectives),
-        ]
         interrupted = False
         try:
             for kind, name, budget, objectives in runs:
@@ -294,6 +296,20 @@ def convergence_note(entry: Entry | None) -> str | None:
 
 #: Sources of plans evaluated first in the plan study (always kept in the ranking).
 SEEDED_SOURCES = ("hand", "previous", "ladder")
+
+
+def _trials_to_run(
+    settings: RunSettings, runs: Sequence[tuple[str, str, int, Sequence[str]]]
+) -> bool:
+    """Whether any of the run's studies is short of its budget (or ``add`` asks for more)."""
+    if settings.add:
+        return True
+    return any(
+        budget > srch.finished(
+            srch.open_study(settings.storage, name, settings.seed, settings.prune, objectives)
+        )
+        for _, name, budget, objectives in runs
+    )
 
 
 def baseline_seeds(

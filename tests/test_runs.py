@@ -114,3 +114,27 @@ def test_tier_depth_counts_the_tiers_each_joint_is_in() -> None:
     names = ("shoulder", "elbow", "wrist")
     assert runs.tier_depth(toml, names) == {"shoulder": 1, "elbow": 2, "wrist": 3}
     assert runs.tier_depth(None, names) == {}
+
+
+def test_a_resume_with_nothing_left_starts_no_worker_processes(small_run, monkeypatch) -> None:
+    """The same run again with two workers: every study holds its budget, so the pool is
+    opened with one worker (no process spawned just to rank); one trial more needs two."""
+    prob, _, out = small_run
+    folder = out.parent
+    from optimizer import search as srch
+
+    asked: list[int] = []
+    real = srch.worker_pool
+
+    def spy(workers: int, problem=None):
+        asked.append(workers)
+        return real(1, problem)  # runs in this process either way
+
+    monkeypatch.setattr(srch, "worker_pool", spy)
+    base = dict(storage=str(folder / "studies.journal"), study="t", baseline_trials=3, seed=5,
+                informed=False, workers=2)
+    runs.run_studies(prob, runs.RunSettings(trials=4, **base))
+    assert asked == [1]
+    assert runs._trials_to_run(runs.RunSettings(trials=5, **base), [
+        ("plan", "t", 5, ("error",)),
+    ])
