@@ -686,6 +686,9 @@ class WorkerJob:
     total: int = 0
     """With a positive value, stop once the study holds this many ended or running trials
     (``--trials`` of several processes on one study do not overrun it)."""
+    call: int = 0
+    """The same for every job of one ``run_search`` call: a worker keeps the study and its
+    sampler (seeded by the first of those jobs it runs) for the later ones."""
 
 
 def study_options(
@@ -746,6 +749,7 @@ def _sigint_blocked() -> Iterator[None]:
 #: jobs, so a worker loads the problem and replays a journal once, not once per job).
 _PROBLEMS: dict[tuple[str, tuple[str, ...]], Problem] = {}
 _STORAGES: dict[str, Any] = {}
+_STUDIES: dict[tuple[str, str, int], optuna.Study] = {}
 
 
 def _loaded_problem(path: str, actuator_files: tuple[str, ...]) -> Problem:
@@ -816,12 +820,15 @@ def run_worker(job: WorkerJob) -> tuple[int, bool]:
     whether a Ctrl-C stopped it: then fewer ran, and the parent stops the run too)."""
     quiet_optuna()
     problem = _loaded_problem(job.problem_path, job.actuator_files)
-    opts = study_options(problem, job.kind)
-    opts["x0"] = dict(job.x0) or None
-    study = open_study(
-        job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts,
-        opened=_opened_storage(job.storage),
-    )  # fmt: skip
+    key = (job.storage, job.study_name, job.call)
+    if key not in _STUDIES:  # one sampler per worker, as with one job per worker
+        opts = study_options(problem, job.kind)
+        opts["x0"] = dict(job.x0) or None
+        _STUDIES[key] = open_study(
+            job.storage, job.study_name, job.seed, job.prune, job.objectives, **opts,
+            opened=_opened_storage(job.storage),
+        )  # fmt: skip
+    study = _STUDIES[key]
     n0 = finished(study)
     if interrupt.requested():  # Ctrl-C came while it started or waited: run nothing
         return 0, True
@@ -925,6 +932,7 @@ def run_search(
             tuple(str(a) for a in problem.actuator_files),
             tuple((opts["x0"] or {}).items()),
             0 if add else total_trials,
+            fresh_seed(seed, study) if resumed else seed,
         )
         for i, s in enumerate(job_sizes(remaining, workers))
     ]

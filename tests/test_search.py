@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -115,6 +116,20 @@ def test_a_pool_starts_its_workers_before_any_job(planar) -> None:
     with srch.worker_pool(2, planar) as pool:
         assert pool is not None
         assert len(srch._pool_processes(pool)) == 2
+
+
+def test_a_worker_keeps_one_sampler_for_the_jobs_of_one_call(planar, tmp_path) -> None:
+    """Two jobs of one run_search call in one process share the study and its sampler
+    (seeded by the first), as one job per worker did; a job of another call gets its own."""
+    storage = str(tmp_path / "k.journal")
+    job = srch.WorkerJob(str(planar.path), storage, "k", "osc", 2, 7, True, call=7)
+    assert srch.run_worker(job) == (2, False)
+    first = srch._STUDIES[(storage, "k", 7)].sampler
+    assert srch.run_worker(dataclasses.replace(job, n_trials=1, seed=1007)) == (1, False)
+    assert srch._STUDIES[(storage, "k", 7)].sampler is first
+    srch.run_worker(dataclasses.replace(job, n_trials=1, call=8))
+    assert srch._STUDIES[(storage, "k", 8)].sampler is not first
+    assert srch.finished(srch._STUDIES[(storage, "k", 8)]) == 4
 
 
 def test_same_seed_same_trials(planar, tmp_path) -> None:
